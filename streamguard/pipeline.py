@@ -1,0 +1,223 @@
+"""The pipeline: quality gate -> subgroups -> detectors -> alarm state -> events, on columnar batches.
+
+Pure and synchronous: no clock, no sockets, no files, no threads. The live service and the replay
+tool build it the same way from the same config and limits and hand it batches; splitting the same
+samples into batches at any boundaries gives the same events, and ``snapshot()``/``restore()`` carry
+the whole state (a handful of arrays plus the tag table) across a restart.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+
+from .alarms import CLEAR, AlarmState, find_transitions
+from .arrays import Columns
+from .config import Config, config_fingerprint
+from .detectors import Signals
+from .detectors.cusum import CusumState, run_cusum
+from .detectors.ewma import EwmaState, run_ewma
+from .detectors.shewhart import ShewhartState, run_shewhart
+from .detectors.spread import MOVING_RANGE, SpreadState, run_spread
+from .events import DIRECTIONS, Event
+from .gate import QUALITY_KINDS, QUALITY_RULES, RANGE_START, REASONS, GateState, gate_kernel
+from .limits import LimitsFile
+from .subgroup import Points, SubgroupState, form_points
+from .tags import TagTable
+from .types import Batch
+
+SHEWHART_RULES = ("", "we1", "we2", "we3", "we4", "nelson1", "nelson2", "nelson3", "nelson4",
+                  "nelson5", "nelson6", "nelson7", "nelson8")  # fmt: skip
+SPREAD_RULES = ("", "moving_range", "s")
+
+_STATE_TYPES: dict[str, type[Columns]] = {
+    "shewhart": ShewhartState,
+    "cusum": CusumState,
+    "ewma": EwmaState,
+    "spread": SpreadState,
+}
+
+
+class Counters(Columns):
+    """Plain per-tag counters; the metrics collector and the replay summary read them."""
+
+    spec = {
+        "samples": (np.int64, (len(REASONS),), 0),
+        "points": (np.int64, (), 0),
+        "raises": (np.int64, (4,), 0),  # by detector, in DETECTOR_NAMES order
+        "quality_events": (np.int64, (len(QUALITY_KINDS),), 0),
+        "first_raise_ts": (np.int64, (), 0),
+        "in_alarm": (np.int32, (), 0),  # detectors currently raised
+    }
+
+
+class Pipeline:
+    """Stages wired in one direction; all state lives in per-tag arrays."""
+
+    def __init__(self, config: Config, limits: LimitsFile | None = None) -> None:
+        self.config = config
+        self.tags = TagTable(config, limits)
+        self.detectors = list(self.tags.detector_params)
+        self.gate_state = GateState()
+        self.subgroup_state = SubgroupState()
+        self.detector_state: dict[str, Columns] = {name: _STATE_TYPES[name]() for name in self.detectors}
+        self.alarm_state: dict[str, AlarmState] = {name: AlarmState() for name in self.detectors}
+        self.counters = Counters()
+        self.clear_after = config.alarms.clear_after
+        self.fingerprint = config_fingerprint(config)
+
+    # -- state ---------------------------------------------------------------------------------
+    def _all_state(self) -> dict[str, Columns]:
+        columns: dict[str, Columns] = {"gate": self.gate_state, "subgroup": self.subgroup_state,
+                                       "counters": self.counters}  # fmt: skip
+        for name in self.detectors:
+            columns[f"detector.{name}"] = self.detector_state[name]
+            columns[f"alarm.{name}"] = self.alarm_state[name]
+        return columns
+
+    def _ensure(self) -> None:
+        n = len(self.tags)
+        for columns in self._all_state().values():
+            columns.ensure(n)
+
+    def snapshot(self) -> dict[str, Any]:
+        """The whole state as plain data: tag names and arrays (round-trips through any store)."""
+        n = len(self.tags)
+        return {
+            "names": list(self.tags.names),
+            "config_fingerprint": self.fingerprint,
+            "limits_version": self.tags.limits_version,
+            "arrays": {key: columns.to_dict(n) for key, columns in self._all_state().items()},
+        }
+
+    def restore(self, snapshot: dict[str, Any]) -> list[str]:
+        """Load a snapshot; returns the tags whose statistics were restarted because settings changed.
+
+        A snapshot from a different config or limits is never silently mixed in: every tag's state is
+        kept only if the config fingerprint and limits version match, else the statistics restart (the
+        tag table and counters are kept, so nothing counted is lost).
+        """
+        names: list[str] = snapshot["names"]
+        self.tags.lookup(names)
+        self._ensure()
+        n = len(names)
+        same = (snapshot.get("config_fingerprint") == self.fingerprint
+                and snapshot.get("limits_version") == self.tags.limits_version)  # fmt: skip
+        for key, columns in self._all_state().items():
+            data = snapshot["arrays"].get(key)
+            if data is None:
+                continue
+            if same or key in ("counters", "gate"):
+                columns.load(data, n)
+        return [] if same else names
+
+    # -- processing ----------------------------------------------------------------------------
+    def process(self, batch: Batch) -> list[Event]:
+        """Run one batch through every stage; returns its events in arrival order."""
+        self._ensure()
+        n = len(batch)
+        reason = np.empty(n, np.uint8)
+        restart = np.empty(n, np.bool_)
+        events = self._gate(batch, reason, restart)
+        points = form_points(batch.tag, batch.ts, batch.value, reason, restart, self.tags.subgroup,
+                             self.subgroup_state, self.tags.all_individuals)  # fmt: skip
+        if len(points):
+            np.add.at(self.counters.points, points.tag, 1)
+            events.extend(self._detect(points))
+        if len(events) > 1:
+            events.sort(key=lambda e: e.ts_ns)
+        return events
+
+    def _gate(self, batch: Batch, reason: np.ndarray, restart: np.ndarray) -> list[Event]:
+        p, s = self.tags.gate, self.gate_state
+        events: list[Event] = []
+        start, n, capacity = 0, len(batch), 1024
+        while start < n:
+            ev_index = np.empty(capacity, np.int64)
+            ev_kind = np.empty(capacity, np.uint8)
+            ev_statistic = np.empty(capacity)
+            ev_limit = np.empty(capacity)
+            start, k = gate_kernel(
+                start, batch.tag, batch.ts, batch.value, batch.quality,
+                p.range_low, p.range_high, p.stale_after, p.max_gap, p.use_uncertain, p.active,
+                s.first_ts, s.last_ts, s.last_used_ts, s.last_value, s.same_count, s.is_stale, s.is_out_of_range,
+                self.counters.samples, reason, restart, ev_index, ev_kind, ev_statistic, ev_limit,
+            )  # fmt: skip
+            for j in range(k):
+                events.append(self._quality_event(batch, int(ev_index[j]), int(ev_kind[j]),
+                                                  float(ev_statistic[j]), float(ev_limit[j])))  # fmt: skip
+        return events
+
+    def _quality_event(self, batch: Batch, i: int, kind: int, statistic: float, limit: float) -> Event:
+        t = int(batch.tag[i])
+        self.counters.quality_events[t, kind] += 1
+        direction = "none"
+        if kind == RANGE_START:
+            direction = "up" if statistic > limit else "down"
+        active = bool(self.tags.gate.active[t])
+        return Event(
+            tag=self.tags.names[t], detector="quality", rule=QUALITY_RULES[kind], kind=QUALITY_KINDS[kind],
+            ts_ns=int(batch.ts[i]), value=float(batch.value[i]), statistic=statistic, limit=limit,
+            center=float(self.tags.centres.mean[t]) if active else None,
+            sigma=float(self.tags.centres.sigma[t]) if active else None,
+            subgroup_size=1, direction=direction, limits_version=self.tags.limits_version,
+            units=self.tags.settings[t].units,
+        )  # fmt: skip
+
+    def standardize(self, points: Points) -> np.ndarray:
+        """z = (mean - mu0) / (sigma0 / sqrt(n)): every detector charts standard errors of the point."""
+        centres = self.tags.centres
+        return (points.mean - centres.mean[points.tag]) / (centres.sigma[points.tag] / np.sqrt(points.n))
+
+    def _signals(self, name: str, points: Points, z: np.ndarray) -> Signals:
+        params = self.tags.detector_params[name]
+        state = self.detector_state[name]
+        if name == "shewhart":
+            return run_shewhart(points.tag, z, points.restart, params, state)  # type: ignore[arg-type]
+        if name == "cusum":
+            return run_cusum(points.tag, z, points.restart, params, state)  # type: ignore[arg-type]
+        if name == "ewma":
+            return run_ewma(points.tag, z, points.restart, params, state)  # type: ignore[arg-type]
+        return run_spread(points.tag, points.mean, points.sd, points.n, self.tags.centres.sigma,
+                          points.restart, params, state)  # type: ignore[arg-type]  # fmt: skip
+
+    def _detect(self, points: Points) -> list[Event]:
+        z = self.standardize(points)
+        events: list[Event] = []
+        for d, name in enumerate(self.detectors):
+            signals = self._signals(name, points, z)
+            found = find_transitions(points.tag, signals.code, signals.direction, self.clear_after,
+                                     self.alarm_state[name])  # fmt: skip
+            detector_index = ("shewhart", "cusum", "ewma", "spread").index(name)
+            for j in range(found.point.shape[0]):
+                i = int(found.point[j])
+                t = int(points.tag[i])
+                kind = "clear" if found.kind[j] == CLEAR else "raise"
+                if kind == "raise":
+                    self.counters.raises[t, detector_index] += 1
+                    self.counters.in_alarm[t] += 1
+                    if self.counters.first_raise_ts[t] == 0:
+                        self.counters.first_raise_ts[t] = points.ts[i]
+                else:
+                    self.counters.in_alarm[t] -= 1
+                events.append(self._alarm_event(name, int(found.rule[j]), kind, int(found.direction[j]),
+                                                points, i, t, signals))  # fmt: skip
+            del d
+        return events
+
+    def _alarm_event(self, name: str, rule: int, kind: str, direction: int, points: Points, i: int, t: int,
+                     signals: Signals) -> Event:  # fmt: skip
+        if name == "shewhart":
+            rule_name = SHEWHART_RULES[rule]
+        elif name == "spread":
+            rule_name = SPREAD_RULES[rule] if rule in (MOVING_RANGE, 2) else "spread"
+        else:
+            rule_name = name
+        return Event(
+            tag=self.tags.names[t], detector=name, rule=rule_name, kind=kind, ts_ns=int(points.ts[i]),
+            value=float(points.mean[i]), statistic=float(signals.statistic[i]), limit=float(signals.limit[i]),
+            center=float(self.tags.centres.mean[t]), sigma=float(self.tags.centres.sigma[t]),
+            subgroup_size=int(points.n[i]), direction=DIRECTIONS[direction],
+            limits_version=self.tags.limits_version, units=self.tags.settings[t].units,
+        )  # fmt: skip

@@ -1,0 +1,134 @@
+"""The tag table: tag names to dense indices, and each tag's resolved settings as parameter arrays.
+
+A new tag gets the next index the first time it is seen; its settings are resolved once (config
+defaults, then matching patterns, then the exact entry) and written into every stage's parameter
+arrays, so the kernels never look at a name or a dict.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from .arrays import Columns
+from .config import BaselineGiven, Config, ResolvedTag, resolve_tag
+from .detectors.cusum import CusumParams
+from .detectors.ewma import EwmaParams
+from .detectors.shewhart import ShewhartParams, rule_order
+from .detectors.spread import SpreadParams
+from .gate import GateParams
+from .limits import LimitsFile, TagLimits, limits_version
+from .subgroup import SubgroupParams
+
+
+class Centres(Columns):
+    spec = {
+        "mean": (np.float64, (), 0.0),
+        "sigma": (np.float64, (), 1.0),
+    }
+
+
+class TagTable:
+    """Names, indices and per-tag parameters for every stage."""
+
+    def __init__(self, config: Config, limits: LimitsFile | None = None) -> None:
+        self.config = config
+        self.limits = limits
+        self.names: list[str] = []
+        self.index: dict[str, int] = {}
+        self.settings: list[ResolvedTag] = []
+        self.limit_source: list[str] = []  # "config", "limits file" or "" (none: tag is skipped)
+        self.gate = GateParams()
+        self.subgroup = SubgroupParams()
+        self.centres = Centres()
+        self.detector_params: dict[str, Columns] = {}
+        enabled = config.detectors.enabled()
+        if "shewhart" in enabled:
+            self.detector_params["shewhart"] = ShewhartParams()
+        if "cusum" in enabled:
+            self.detector_params["cusum"] = CusumParams()
+        if "ewma" in enabled:
+            self.detector_params["ewma"] = EwmaParams()
+        if "spread" in enabled:
+            self.detector_params["spread"] = SpreadParams()
+        self.all_individuals = True
+        self._given: dict[str, tuple[float, float]] = {}
+        self._version: str | None = None
+
+    def __len__(self) -> int:
+        return len(self.names)
+
+    @property
+    def limits_version(self) -> str:
+        """The limits file's version, or a hash of config-given baselines (prefixed so they differ)."""
+        if self._version is not None:
+            return self._version
+        parts = []
+        if self.limits is not None:
+            parts.append(self.limits.limits_version)
+        if self._given:
+            parts.append("cfg-" + limits_version(self._given))
+        self._version = "+".join(parts) or "none"
+        return self._version
+
+    def lookup(self, names: list[str]) -> np.ndarray:
+        """Indices for a chunk's tag names, adding the new ones."""
+        out = np.empty(len(names), dtype=np.int32)
+        for j, name in enumerate(names):
+            i = self.index.get(name)
+            out[j] = self.add(name) if i is None else i
+        return out
+
+    def add(self, name: str) -> int:
+        i = len(self.names)
+        settings = resolve_tag(self.config, name)
+        self.names.append(name)
+        self.index[name] = i
+        self.settings.append(settings)
+        for columns in (self.gate, self.subgroup, self.centres, *self.detector_params.values()):
+            columns.ensure(i + 1)
+        self._fill(i, settings)
+        return i
+
+    def _fill(self, i: int, s: ResolvedTag) -> None:
+        mean, sigma, source = self._baseline(s)
+        self.limit_source.append(source)
+        if source == "config":
+            self._given[s.name] = (mean, sigma)
+            self._version = None
+        self.centres.mean[i] = mean
+        self.centres.sigma[i] = sigma
+        gate = self.gate
+        gate.active[i] = bool(source)
+        gate.range_low[i], gate.range_high[i] = s.range if s.range else (-np.inf, np.inf)
+        gate.stale_after[i] = s.stale_after
+        gate.max_gap[i] = s.max_gap_ns
+        gate.use_uncertain[i] = s.use_uncertain
+        self.subgroup.size[i] = s.subgroup.count
+        self.subgroup.window[i] = s.subgroup.window_ns
+        if s.subgroup.window_ns or s.subgroup.count != 1:
+            self.all_individuals = False
+        for name, columns in self.detector_params.items():
+            p = s.detectors[name]
+            if name == "shewhart":
+                columns.limit[i] = p.limit
+                columns.order[i] = rule_order(p.rules)
+                columns.run_length[i] = p.run_length
+            elif name == "cusum":
+                columns.k[i], columns.h[i], columns.headstart[i] = p.k, p.h, p.headstart
+            elif name == "ewma":
+                columns.lam[i], columns.L[i], columns.exact[i] = p.lambda_, p.L, p.limits == "exact"
+            elif name == "spread":
+                columns.limit[i] = p.limit
+
+    def _baseline(self, s: ResolvedTag) -> tuple[float, float, str]:
+        if isinstance(s.baseline, BaselineGiven):
+            return s.baseline.mean, s.baseline.sigma, "config"
+        found: TagLimits | None = self.limits.tags.get(s.name) if self.limits else None
+        if found is not None and math.isfinite(found.sigma) and found.sigma > 0:
+            return found.mean, found.sigma, "limits file"
+        return 0.0, 1.0, ""
+
+    def unconfigured(self) -> list[str]:
+        return [n for n, src in zip(self.names, self.limit_source, strict=True) if not src]

@@ -3,11 +3,17 @@
 A raise is emitted on the transition from in control to signalling; while raised, further signals
 only hold the alarm; ``clear_after`` consecutive in-control points clear it. This hysteresis is what
 keeps one real shift from chattering into dozens of alarms (ISA-18.2 calls such repeats chattering).
-Only transitions leave this stage, as compact records; Python objects are made for them downstream.
+
+Each detector kernel calls ``alarm_step`` for every point that signals or belongs to a raised alarm
+(the kernel tests that cheap condition itself: measured here, a call on every point costs 7x), so per-point verdicts
+never have to be written to memory: only transitions leave the kernel, as compact records in a
+buffer. When the buffer fills, the kernel returns where it stopped and ``run_detector`` resumes it
+with a fresh buffer, so no transition is ever dropped.
 """
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -18,74 +24,88 @@ from .arrays import Columns
 RAISE = 1
 CLEAR = 2
 
+# Columns of the per-tag alarm array, and of the transition records.
+RAISED, IN_CONTROL_RUN, RULE, DIRECTION = 0, 1, 2, 3
+POINT, KIND = 0, 1  # record columns (RULE and DIRECTION share indices 2 and 3)
+STATISTIC, LIMIT = 0, 1
+
 
 class AlarmState(Columns):
-    spec = {
-        "raised": (np.bool_, (), False),
-        "in_control_run": (np.int32, (), 0),
-        "rule": (np.int8, (), 0),
-        "direction": (np.int8, (), 0),
-    }
+    spec = {"alarm": (np.int32, (4,), 0)}  # raised, in-control run, rule that raised, direction
+
+
+@njit(cache=True, inline="always")
+def alarm_step(t, i, code, direction, statistic, limit, clear_after, alarm, ev_int, ev_float, m):
+    """Advance tag t's alarm state by one point; returns the new number of records in the buffer."""
+    if code != 0:
+        alarm[t, IN_CONTROL_RUN] = 0
+        if alarm[t, RAISED] == 0:
+            alarm[t, RAISED] = 1
+            alarm[t, RULE] = code
+            alarm[t, DIRECTION] = direction
+            ev_int[m, POINT] = i
+            ev_int[m, KIND] = RAISE
+            ev_int[m, RULE] = code
+            ev_int[m, DIRECTION] = direction
+            ev_float[m, STATISTIC] = statistic
+            ev_float[m, LIMIT] = limit
+            return m + 1
+    elif alarm[t, RAISED] != 0:
+        alarm[t, IN_CONTROL_RUN] += 1
+        if alarm[t, IN_CONTROL_RUN] >= clear_after:
+            alarm[t, RAISED] = 0
+            alarm[t, IN_CONTROL_RUN] = 0
+            ev_int[m, POINT] = i
+            ev_int[m, KIND] = CLEAR
+            ev_int[m, RULE] = alarm[t, RULE]
+            ev_int[m, DIRECTION] = alarm[t, DIRECTION]
+            ev_float[m, STATISTIC] = statistic
+            ev_float[m, LIMIT] = limit
+            return m + 1
+    return m
 
 
 @dataclass(frozen=True)
-class Transitions:
+class DetectorOutput:
+    """Transitions of one detector over a batch, and (only when asked) its per-point trace."""
+
     point: np.ndarray  # int64 index into the batch's points
-    kind: np.ndarray  # int8 RAISE / CLEAR
-    rule: np.ndarray  # int8 the detector's rule code (for a clear: the rule that raised)
-    direction: np.ndarray  # int8
+    kind: np.ndarray  # RAISE / CLEAR
+    rule: np.ndarray  # the detector's rule code (for a clear: the rule that raised)
+    direction: np.ndarray  # +1 up, -1 down, 0 none
+    statistic: np.ndarray
+    limit: np.ndarray
+    trace_code: np.ndarray  # per point, empty unless traced
+    trace_direction: np.ndarray
+    trace_statistic: np.ndarray
+    trace_limit: np.ndarray
 
 
-@njit(cache=True)
-def alarm_kernel(start, tag, code, direction, clear_after, raised, in_control_run, rule, alarm_direction,
-                 ev_point, ev_kind, ev_rule, ev_direction):  # fmt: skip
-    """Returns (next point to process, transitions written); stops when the buffer is full."""
-    capacity = ev_point.shape[0]
-    k = 0
-    i = start
-    while i < tag.shape[0]:
-        if k >= capacity:
-            break
-        t = tag[i]
-        if code[i] != 0:
-            in_control_run[t] = 0
-            if not raised[t]:
-                raised[t] = True
-                rule[t] = code[i]
-                alarm_direction[t] = direction[i]
-                ev_point[k] = i
-                ev_kind[k] = RAISE
-                ev_rule[k] = code[i]
-                ev_direction[k] = direction[i]
-                k += 1
-        elif raised[t]:
-            in_control_run[t] += 1
-            if in_control_run[t] >= clear_after:
-                raised[t] = False
-                in_control_run[t] = 0
-                ev_point[k] = i
-                ev_kind[k] = CLEAR
-                ev_rule[k] = rule[t]
-                ev_direction[k] = alarm_direction[t]
-                k += 1
-        i += 1
-    return i, k
+KernelCall = Callable[..., tuple[int, int]]
 
 
-def find_transitions(tag: np.ndarray, code: np.ndarray, direction: np.ndarray, clear_after: int,
-                     state: AlarmState, capacity: int = 4096) -> Transitions:  # fmt: skip
-    """Run the alarm stage over a batch's points, growing the transition buffer as needed."""
-    parts: list[tuple[np.ndarray, ...]] = []
+def run_detector(call: KernelCall, n: int, clear_after: int, state: AlarmState, trace: bool = False,
+                 capacity: int = 4096) -> DetectorOutput:  # fmt: skip
+    """Drive a detector kernel over n points, resuming it whenever its transition buffer fills.
+
+    ``call(start, clear_after, alarm, ev_int, ev_float, trace, tr_int, tr_float)`` is the kernel with its
+    detector-specific arrays already bound.
+    """
+    tr_int = np.zeros((n if trace else 0, 2), np.int8)
+    tr_float = np.zeros((n if trace else 0, 2), np.float64)
+    ints: list[np.ndarray] = []
+    floats: list[np.ndarray] = []
     start = 0
-    n = tag.shape[0]
     while True:
-        buffers = (np.empty(capacity, np.int64), np.empty(capacity, np.int8),
-                   np.empty(capacity, np.int8), np.empty(capacity, np.int8))  # fmt: skip
-        start, k = alarm_kernel(start, tag, code, direction, clear_after, state.raised, state.in_control_run,
-                                state.rule, state.direction, *buffers)  # fmt: skip
-        parts.append(tuple(b[:k] for b in buffers))
+        ev_int = np.empty((capacity, 4), np.int64)
+        ev_float = np.empty((capacity, 2), np.float64)
+        start, m = call(start, clear_after, state.alarm, ev_int, ev_float, trace, tr_int, tr_float)
+        ints.append(ev_int[:m])
+        floats.append(ev_float[:m])
         if start >= n:
             break
-    if len(parts) == 1:
-        return Transitions(*parts[0])
-    return Transitions(*(np.concatenate([p[j] for p in parts]) for j in range(4)))
+    ev_i = ints[0] if len(ints) == 1 else np.concatenate(ints)
+    ev_f = floats[0] if len(floats) == 1 else np.concatenate(floats)
+    return DetectorOutput(ev_i[:, POINT], ev_i[:, KIND], ev_i[:, RULE], ev_i[:, DIRECTION],
+                          ev_f[:, STATISTIC], ev_f[:, LIMIT],
+                          tr_int[:, 0], tr_int[:, 1], tr_float[:, 0], tr_float[:, 1])  # fmt: skip

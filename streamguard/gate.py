@@ -5,6 +5,10 @@ the instrument range and stuck (stale) values are excluded and counted per tag a
 and gap conditions also raise data-quality events, which are kept apart from process alarms: a sick
 sensor must never look like a shifted process. A gap longer than ``max_gap`` marks the next usable
 sample so that the detectors restart their statistics (run rules never span a gap).
+
+A stuck value is recognised only after ``stale_after`` identical values: the first ``stale_after - 1``
+repeats look exactly like a healthy signal and do reach the detectors. Choose ``stale_after`` well above
+the longest run of repeats a healthy tag shows at its resolution (the baseline data tells).
 """
 
 from __future__ import annotations

@@ -11,11 +11,11 @@ from __future__ import annotations
 from typing import Any
 
 import numpy as np
+from numba import njit
 
-from .alarms import CLEAR, AlarmState, find_transitions
+from .alarms import CLEAR, AlarmState, DetectorOutput
 from .arrays import Columns
-from .config import Config, config_fingerprint
-from .detectors import Signals
+from .config import DETECTOR_NAMES, Config, config_fingerprint
 from .detectors.cusum import CusumState, run_cusum
 from .detectors.ewma import EwmaState, run_ewma
 from .detectors.shewhart import ShewhartState, run_shewhart
@@ -168,46 +168,47 @@ class Pipeline:
     def standardize(self, points: Points) -> np.ndarray:
         """z = (mean - mu0) / (sigma0 / sqrt(n)): every detector charts standard errors of the point."""
         centres = self.tags.centres
-        return (points.mean - centres.mean[points.tag]) / (centres.sigma[points.tag] / np.sqrt(points.n))
+        return standardize_kernel(points.tag, points.mean, points.n, centres.mean, centres.sigma)
 
-    def _signals(self, name: str, points: Points, z: np.ndarray) -> Signals:
+    def run_detector(self, name: str, points: Points, z: np.ndarray, trace: bool = False) -> DetectorOutput:
+        """One detector over the batch's points, its alarm state advanced in the same pass."""
         params = self.tags.detector_params[name]
         state = self.detector_state[name]
+        alarm = self.alarm_state[name]
+        common = (alarm, self.clear_after, trace)
         if name == "shewhart":
-            return run_shewhart(points.tag, z, points.restart, params, state)  # type: ignore[arg-type]
+            return run_shewhart(points.tag, z, points.restart, params, state, *common)  # type: ignore[arg-type]
         if name == "cusum":
-            return run_cusum(points.tag, z, points.restart, params, state)  # type: ignore[arg-type]
+            return run_cusum(points.tag, z, points.restart, params, state, *common)  # type: ignore[arg-type]
         if name == "ewma":
-            return run_ewma(points.tag, z, points.restart, params, state)  # type: ignore[arg-type]
+            return run_ewma(points.tag, z, points.restart, params, state, *common)  # type: ignore[arg-type]
         return run_spread(points.tag, points.mean, points.sd, points.n, self.tags.centres.sigma,
-                          points.restart, params, state)  # type: ignore[arg-type]  # fmt: skip
+                          points.restart, params, state, *common)  # type: ignore[arg-type]  # fmt: skip
 
     def _detect(self, points: Points) -> list[Event]:
         z = self.standardize(points)
         events: list[Event] = []
-        for d, name in enumerate(self.detectors):
-            signals = self._signals(name, points, z)
-            found = find_transitions(points.tag, signals.code, signals.direction, self.clear_after,
-                                     self.alarm_state[name])  # fmt: skip
-            detector_index = ("shewhart", "cusum", "ewma", "spread").index(name)
-            for j in range(found.point.shape[0]):
-                i = int(found.point[j])
+        counters = self.counters
+        for name in self.detectors:
+            out = self.run_detector(name, points, z)
+            detector_index = DETECTOR_NAMES.index(name)
+            for j in range(out.point.shape[0]):
+                i = int(out.point[j])
                 t = int(points.tag[i])
-                kind = "clear" if found.kind[j] == CLEAR else "raise"
+                kind = "clear" if out.kind[j] == CLEAR else "raise"
                 if kind == "raise":
-                    self.counters.raises[t, detector_index] += 1
-                    self.counters.in_alarm[t] += 1
-                    if self.counters.first_raise_ts[t] == 0:
-                        self.counters.first_raise_ts[t] = points.ts[i]
+                    counters.raises[t, detector_index] += 1
+                    counters.in_alarm[t] += 1
+                    if counters.first_raise_ts[t] == 0:
+                        counters.first_raise_ts[t] = points.ts[i]
                 else:
-                    self.counters.in_alarm[t] -= 1
-                events.append(self._alarm_event(name, int(found.rule[j]), kind, int(found.direction[j]),
-                                                points, i, t, signals))  # fmt: skip
-            del d
+                    counters.in_alarm[t] -= 1
+                events.append(self._alarm_event(name, int(out.rule[j]), kind, int(out.direction[j]), points, i, t,
+                                                float(out.statistic[j]), float(out.limit[j])))  # fmt: skip
         return events
 
     def _alarm_event(self, name: str, rule: int, kind: str, direction: int, points: Points, i: int, t: int,
-                     signals: Signals) -> Event:  # fmt: skip
+                     statistic: float, limit: float) -> Event:  # fmt: skip
         if name == "shewhart":
             rule_name = SHEWHART_RULES[rule]
         elif name == "spread":
@@ -216,8 +217,17 @@ class Pipeline:
             rule_name = name
         return Event(
             tag=self.tags.names[t], detector=name, rule=rule_name, kind=kind, ts_ns=int(points.ts[i]),
-            value=float(points.mean[i]), statistic=float(signals.statistic[i]), limit=float(signals.limit[i]),
+            value=float(points.mean[i]), statistic=statistic, limit=limit,
             center=float(self.tags.centres.mean[t]), sigma=float(self.tags.centres.sigma[t]),
             subgroup_size=int(points.n[i]), direction=DIRECTIONS[direction],
             limits_version=self.tags.limits_version, units=self.tags.settings[t].units,
         )  # fmt: skip
+
+
+@njit(cache=True)
+def standardize_kernel(tag, mean, n, mu, sigma):  # type: ignore[no-untyped-def]
+    z = np.empty(tag.shape[0])
+    for i in range(tag.shape[0]):
+        t = tag[i]
+        z[i] = (mean[i] - mu[t]) / (sigma[t] / np.sqrt(n[i])) if n[i] != 1 else (mean[i] - mu[t]) / sigma[t]
+    return z

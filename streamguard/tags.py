@@ -15,7 +15,7 @@ from .arrays import Columns
 from .config import BaselineGiven, Config, ResolvedTag, resolve_tag
 from .detectors.cusum import CusumParams
 from .detectors.ewma import EwmaParams
-from .detectors.shewhart import ShewhartParams, rule_order
+from .detectors.shewhart import ShewhartParams, rule_mask, rule_order
 from .detectors.spread import SpreadParams
 from .gate import GateParams
 from .limits import LimitsFile, TagLimits, limits_version
@@ -114,6 +114,7 @@ class TagTable:
             if name == "shewhart":
                 columns.limit[i] = p.limit
                 columns.order[i] = rule_order(p.rules)
+                columns.mask[i] = rule_mask(p.rules)
                 columns.run_length[i] = p.run_length
             elif name == "cusum":
                 columns.k[i], columns.h[i], columns.headstart[i] = p.k, p.h, p.headstart

@@ -10,7 +10,7 @@ import pytest
 
 from streamguard.detectors.cusum import CusumParams, CusumState, run_cusum
 from streamguard.detectors.ewma import EwmaParams, EwmaState, run_ewma
-from streamguard.detectors.shewhart import ShewhartParams, ShewhartState, rule_order, run_shewhart
+from streamguard.detectors.shewhart import ShewhartParams, ShewhartState, rule_mask, rule_order, run_shewhart
 from streamguard.detectors.spread import SpreadParams, SpreadState, run_spread
 
 RNG_SEED = 20261202
@@ -28,15 +28,15 @@ def test_cusum_matches_page_recursion_step_by_step() -> None:
     params, state = CusumParams(1), CusumState(1)
     params.k[0], params.h[0], params.headstart[0] = k, h, f
     tag, restart = _one_tag(z.size)
-    out = run_cusum(tag, z, restart, params, state)
+    out = run_cusum(tag, z, restart, params, state, trace=True)
     upper = lower = f * h
     for i, x in enumerate(z):
         upper = max(0.0, upper + x - k)
         lower = max(0.0, lower - x - k)
         signal = upper > h or lower > h
-        assert out.code[i] == (1 if signal else 0)
+        assert out.trace_code[i] == (1 if signal else 0)
         expected = upper if upper >= lower else -lower
-        assert out.statistic[i] == pytest.approx(expected, abs=1e-12)
+        assert out.trace_statistic[i] == pytest.approx(expected, abs=1e-12)
         if signal:
             upper = lower = f * h
 
@@ -49,9 +49,9 @@ def test_cusum_worked_example_signals_at_observation_29() -> None:
                   11.62, 11.31, 10.52])  # fmt: skip
     params, state = CusumParams(1), CusumState(1)
     tag, restart = _one_tag(x.size)
-    out = run_cusum(tag, x - 10.0, restart, params, state)
-    assert int(np.flatnonzero(out.code)[0]) + 1 == 29
-    assert out.statistic[28] == pytest.approx(5.28, abs=0.005)
+    out = run_cusum(tag, x - 10.0, restart, params, state, trace=True)
+    assert int(np.flatnonzero(out.trace_code)[0]) + 1 == 29
+    assert out.trace_statistic[28] == pytest.approx(5.28, abs=0.005)
 
 
 @pytest.mark.parametrize("exact", [True, False])
@@ -63,16 +63,16 @@ def test_ewma_matches_roberts_recursion_and_limits(exact: bool) -> None:
     params, state = EwmaParams(1), EwmaState(1)
     params.lam[0], params.L[0], params.exact[0] = lam, L, exact
     tag, restart = _one_tag(z.size)
-    out = run_ewma(tag, z, restart, params, state)
+    out = run_ewma(tag, z, restart, params, state, trace=True)
     e, i_since = 0.0, 0
     for i, x in enumerate(z):
         i_since += 1
         e = lam * x + (1 - lam) * e
         var = lam / (2 - lam) * ((1 - (1 - lam) ** (2 * i_since)) if exact else 1.0)
         bound = L * math.sqrt(var)
-        assert out.statistic[i] == pytest.approx(e, abs=1e-12)
-        assert out.limit[i] == pytest.approx(bound, rel=1e-12)
-        assert out.code[i] == (1 if abs(e) > bound else 0)
+        assert out.trace_statistic[i] == pytest.approx(e, abs=1e-12)
+        assert out.trace_limit[i] == pytest.approx(bound, rel=1e-12)
+        assert out.trace_code[i] == (1 if abs(e) > bound else 0)
         if abs(e) > bound:
             e, i_since = 0.0, 0
 
@@ -135,11 +135,12 @@ def test_run_rules_match_literal_transcription(rules: list[str]) -> None:
     z = np.concatenate(parts)
     params, state = ShewhartParams(1), ShewhartState(1)
     params.order[0] = rule_order(tuple(rules))
+    params.mask[0] = rule_mask(tuple(rules))
     tag, restart = _one_tag(z.size)
-    out = run_shewhart(tag, z, restart, params, state)
+    out = run_shewhart(tag, z, restart, params, state, trace=True)
     names = ["", "we1", "we2", "we3", "we4", "nelson1", "nelson2", "nelson3", "nelson4", "nelson5",
              "nelson6", "nelson7", "nelson8"]  # fmt: skip
-    got = [names[c] for c in out.code]
+    got = [names[c] for c in out.trace_code]
     expected = _reference_rules(z, rules)
     assert got == expected
     assert len({r for r in got if r}) >= 3  # the data really exercises several rules
@@ -150,9 +151,9 @@ def test_moving_range_limit_uses_d2_d3_for_n_2() -> None:
     params, state = SpreadParams(1), SpreadState(1)
     x = np.array([0.0, 3.6, 0.0, 3.8])
     tag, restart = _one_tag(x.size)
-    out = run_spread(tag, x, np.full(4, np.nan), np.ones(4, np.int32), np.ones(1), restart, params, state)
-    assert out.limit[1] == pytest.approx(3.686, abs=0.001)
-    assert out.code.tolist() == [0, 0, 0, 1]
+    out = run_spread(tag, x, np.full(4, np.nan), np.ones(4, np.int32), np.ones(1), restart, params, state, trace=True)
+    assert out.trace_limit[1] == pytest.approx(3.686, abs=0.001)
+    assert out.trace_code.tolist() == [0, 0, 0, 1]
 
 
 def test_s_chart_limits_use_c4() -> None:
@@ -162,8 +163,8 @@ def test_s_chart_limits_use_c4() -> None:
     n = np.full(3, 10, np.int32)
     sd = np.array([1.0, 1.70, 0.25])
     tag, restart = _one_tag(3)
-    out = run_spread(tag, np.zeros(3), sd, n, np.ones(1), restart, params, state)
-    assert out.code.tolist() == [0, 2, 2]
-    assert out.direction.tolist() == [0, 1, -1]
-    assert out.limit[1] == pytest.approx(1.669, abs=0.001)
-    assert out.limit[2] == pytest.approx(0.276, abs=0.001)
+    out = run_spread(tag, np.zeros(3), sd, n, np.ones(1), restart, params, state, trace=True)
+    assert out.trace_code.tolist() == [0, 2, 2]
+    assert out.trace_direction.tolist() == [0, 1, -1]
+    assert out.trace_limit[1] == pytest.approx(1.669, abs=0.001)
+    assert out.trace_limit[2] == pytest.approx(0.276, abs=0.001)

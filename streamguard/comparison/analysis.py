@@ -148,17 +148,17 @@ def _prepare(
 ) -> _Prepared:
     """Apply the serial-correlation method to each series (two samples, or one series of differences)."""
     labels = [summary.label for summary in summaries]
+    notes: list[str] = []
     if method == "naive":
         inputs = tuple((s.mean, s.sd, float(s.n)) for s in summaries)
-        notes = []
         if phi > AUTOCORRELATION_NOTICE:
             counts = " and ".join(f"{s.n} ({s.label})" for s in summaries)
             independent = " and ".join(f"{s.effective_n:.0f}" for s in summaries)
             notes.append(
                 f"lag-1 autocorrelation up to {phi:.2f}: the naive test counts {counts} values where about"
-                f" {independent} are independent, so its p-value is too small; use method blocks or effective_n"
+                f" {independent} are independent, so its p-value is too small; use blocks or effective_n"
             )
-        reason = "every value counted as independent (right only when the lag-1 autocorrelation is near zero)"
+        reason = "every value counted as independent (right only when lag-1 autocorrelation is near zero)"
         return _Prepared(inputs, reason, None, tuple(notes))
     if method == "effective_n":
         inputs = tuple((s.mean, s.sd, s.effective_n) for s in summaries)
@@ -166,16 +166,12 @@ def _prepare(
             f"{s.label} {s.n} -> {s.effective_n:.1f} (r1 = {s.lag1_autocorrelation:.3f})" for s in summaries
         )
         reason = (
-            "t test with effective sizes n (1 - r1)/(1 + r1) (AR(1) approximation, Bayley & Hammersley 1946): "
-            + shrinkage
+            "t test with effective sizes n (1 - r1)/(1 + r1) (AR(1) approximation,"
+            " Bayley & Hammersley 1946): " + shrinkage
         )
-        rough = min(s.effective_n for s in summaries) < 10
-        notes = (
-            ("fewer than 10 effective values in a series: the AR(1) correction is rough here",)
-            if rough
-            else ()
-        )
-        return _Prepared(inputs, reason, None, notes)
+        if min(s.effective_n for s in summaries) < 10:
+            notes.append("fewer than 10 effective values in a series: the AR(1) correction is rough here")
+        return _Prepared(inputs, reason, None, tuple(notes))
     block_length, shortened = _plan_blocks(phi, min(s.n for s in summaries))
     means = [block_means(values, block_length) for values in series]
     if min(m.shape[0] for m in means) < 2:

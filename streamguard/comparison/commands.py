@@ -20,7 +20,7 @@ from ..timeparse import parse_time
 from .analysis import METHODS, Method, compare_paired, compare_samples
 from .pairing import pair_nearest
 from .report import format_paired, format_two_sample, to_json
-from .series import TagSeries, Window, in_window, median_interval_s, read_tag_series
+from .series import TagSeries, Window, excluded_in_window, in_window, median_interval_s, read_tag_series
 
 _DESCRIPTION = """\
 Compare means of historian data offline, with serial correlation taken into account.
@@ -138,7 +138,8 @@ def parse_window(text: str | None, option: str) -> Window:
         return Window()
     if ".." not in text:
         raise UsageError(
-            f"{option}: {text!r} is not a window; write START..END (e.g. 2026-03-01T00:00Z..2026-03-02T00:00Z)"
+            f"{option}: {text!r} is not a window; write START..END"
+            " (e.g. 2026-03-01T00:00Z..2026-03-02T00:00Z)"
         )
     start_text, end_text = (part.strip() for part in text.split("..", 1))
     start = _time(start_text, option) if start_text else None
@@ -181,15 +182,14 @@ def _input_settings(path: str | None) -> Any:
 
 def _selected(series: TagSeries, window: Window, label: str) -> tuple[np.ndarray, np.ndarray, dict[str, Any]]:
     ts, value = in_window(series, window)
-    good = series.ts.shape[0]
+    not_good, not_finite = excluded_in_window(series, window)
     record = {
         "label": label,
         "tag": series.tag,
         "window": window.to_dict(),
-        "rows": series.rows,
-        "not_good": series.not_good,
-        "not_finite": series.not_finite,
-        "outside_window": good - int(ts.shape[0]),
+        "rows": int(ts.shape[0]) + not_good + not_finite,
+        "not_good": not_good,
+        "not_finite": not_finite,
         "used": int(ts.shape[0]),
     }
     if ts.shape[0] < 3:
@@ -202,9 +202,8 @@ def _selected(series: TagSeries, window: Window, label: str) -> tuple[np.ndarray
 
 def _input_line(record: dict[str, Any], window: Window) -> str:
     return (
-        f"  {record['label']}: tag {record['tag']}, {window.describe()}: {record['used']} used"
-        f" (of {record['rows']} rows: {record['not_good']} not good, {record['not_finite']} not finite,"
-        f" {record['outside_window']} outside the window)"
+        f"  {record['label']}: tag {record['tag']}, {window.describe()}: {record['used']} samples used"
+        f" of {record['rows']} rows ({record['not_good']} not good, {record['not_finite']} not finite)"
     )
 
 
@@ -308,8 +307,8 @@ def _run_paired(args: argparse.Namespace) -> tuple[dict[str, Any], str]:
     if pairing.pairs < 3:
         raise InputError(
             f"{title}, window {window.describe()}: only {pairing.pairs} pairs within {args.tolerance}"
-            f" ({pairing.unmatched_first} of {first_tag} and {pairing.unmatched_second} of {second_tag} unmatched);"
-            " widen --tolerance or the window"
+            f" ({pairing.unmatched_first} of {first_tag} and {pairing.unmatched_second} of {second_tag}"
+            " unmatched); widen --tolerance or the window"
         )
     transformed = args.scale != 1.0 or args.offset != 0.0
     second_label = f"{second_tag} (x{args.scale:g} {args.offset:+g})" if transformed else second_tag

@@ -38,6 +38,8 @@ def number(value: float | None, digits: int = 5) -> str:
 def p_value(value: float) -> str:
     if math.isnan(value):
         return "n/a"
+    if value < 1e-300:  # below what a double resolves in the t tail: say so rather than print 0
+        return "< 1e-300"
     return f"{value:.2e}" if value < 1e-4 else f"{value:.4f}"
 
 
@@ -71,22 +73,24 @@ def _block_lines(blocks: BlockSummary | None) -> list[str]:
         return []
     observed = ", ".join(number(value, 2) for value in blocks.observed_block_correlation)
     unused = ", ".join(str(count) for count in blocks.samples_unused)
-    return [
-        f"  blocks of {blocks.block_length}: {', '.join(str(count) for count in blocks.blocks)} blocks;"
+    return _wrapped(
+        "  ",
+        f"blocks of {blocks.block_length}: {', '.join(str(count) for count in blocks.blocks)} blocks;"
         f" lag-1 autocorrelation of block means predicted {number(blocks.predicted_block_correlation, 2)},"
-        f" observed {observed}; tail samples not used: {unused}"
-    ]
+        f" observed {observed}; tail samples not used: {unused}",
+    )
 
 
 def _equivalence_lines(equivalence: Equivalence | None) -> list[str]:
     if equivalence is None:
         return []
     verdict = "yes" if equivalence.within_margin else "not shown"
-    return [
-        f"  equivalence within +-{number(equivalence.margin)} (two one-sided tests):"
-        f" {_percent(equivalence.confidence)} CI {number(equivalence.ci_low)} .. {number(equivalence.ci_high)},"
-        f" p = {p_value(equivalence.p_value)}; within margin: {verdict}"
-    ]
+    return _wrapped(
+        "  ",
+        f"equivalence within +-{number(equivalence.margin)} (two one-sided tests):"
+        f" {_percent(equivalence.confidence)} CI {number(equivalence.ci_low)} .."
+        f" {number(equivalence.ci_high)}, p = {p_value(equivalence.p_value)}; within margin: {verdict}",
+    )
 
 
 def _power_lines(power: PowerSummary) -> list[str]:
@@ -101,12 +105,16 @@ def _power_lines(power: PowerSummary) -> list[str]:
         else:
             needed = f"{power.required_independent_n} independent"
             if power.required_samples is not None and power.required_samples != power.required_independent_n:
-                needed += f" = {power.required_samples} samples"
+                needed += f" -> {power.required_samples} samples"
             if power.required_duration_s is not None:
-                needed += f" = {format_duration(power.required_duration_s * 1e9)}"
+                needed += f" -> {format_duration(power.required_duration_s * 1e9)}"
         lines.append(f"  {'needed to detect it':<{_LABEL}}{needed:>16}")
     lines.extend(_wrapped("  basis: ", power.basis))
     return lines
+
+
+def _test_line(name: str, t: float, df: float, p: float) -> str:
+    return f"  {name:<8} t = {number(t, 4):<10} df = {number(df, 4):<10} p = {p_value(p)}"
 
 
 def _note_lines(notes: Sequence[str]) -> list[str]:
@@ -131,9 +139,7 @@ def format_two_sample(result: TwoSampleComparison, header: Sequence[str] = ()) -
         f"   {_percent(welch.confidence)} CI {number(welch.ci_low)} .. {number(welch.ci_high)} (Welch)"
     )
     for test in (welch, pooled):
-        lines.append(
-            f"  {test.name:<8} t = {number(test.t, 4):<10} df = {number(test.df, 4):<10} p = {p_value(test.p_value)}"
-        )
+        lines.append(_test_line(test.name, test.t, test.df, test.p_value))
     lines.append(
         f"  effect size: Cohen's d = {number(effect.cohen_d, 3)}, Hedges' g = {number(effect.hedges_g, 3)}"
         " (on the pooled SD of individual samples)"
@@ -158,9 +164,7 @@ def format_paired(result: PairedComparison, header: Sequence[str] = ()) -> str:
         f"mean difference ({result.difference_label}) {number(test.mean_difference)}"
         f"   {_percent(test.confidence)} CI {number(test.ci_low)} .. {number(test.ci_high)}"
     )
-    lines.append(
-        f"  paired   t = {number(test.t, 4):<10} df = {number(test.df, 4):<10} p = {p_value(test.p_value)}"
-    )
+    lines.append(_test_line("paired", test.t, test.df, test.p_value))
     lines.append(
         f"  effect size: Cohen's d_z = {number(effect.cohen_d, 3)}, Hedges' g = {number(effect.hedges_g, 3)}"
         " (on the SD of individual differences)"

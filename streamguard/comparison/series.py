@@ -26,9 +26,8 @@ class TagSeries:
     tag: str
     ts: np.ndarray  # int64 ns UTC, ascending
     value: np.ndarray  # float64
-    rows: int  # rows of this tag in the files
-    not_good: int  # quality uncertain or bad
-    not_finite: int  # good quality but NaN or infinite
+    not_good_ts: np.ndarray  # times of rows with quality uncertain or bad, ascending
+    not_finite_ts: np.ndarray  # times of good-quality rows whose value is NaN or infinite, ascending
 
 
 @dataclass(frozen=True)
@@ -59,8 +58,8 @@ def read_tag_series(
     wanted = list(dict.fromkeys(tags))
     parts: dict[str, list[tuple[np.ndarray, np.ndarray]]] = {tag: [] for tag in wanted}
     rows = dict.fromkeys(wanted, 0)
-    not_good = dict.fromkeys(wanted, 0)
-    not_finite = dict.fromkeys(wanted, 0)
+    not_good: dict[str, list[np.ndarray]] = {tag: [] for tag in wanted}
+    not_finite: dict[str, list[np.ndarray]] = {tag: [] for tag in wanted}
     problems = ReadProblems()
     chunks = read_historian(
         [str(path) for path in paths], settings if settings is not None else InputSettings(), strict=False,
@@ -82,28 +81,44 @@ def read_tag_series(
             good = quality == GOOD
             finite = np.isfinite(value)
             rows[tag] += count
-            not_good[tag] += int(np.count_nonzero(~good))
-            not_finite[tag] += int(np.count_nonzero(good & ~finite))
+            not_good[tag].append(ts[~good])
+            not_finite[tag].append(ts[good & ~finite])
             keep = good & finite
             parts[tag].append((ts[keep], value[keep]))
     series = {}
     for tag in wanted:
         if rows[tag] == 0:
             raise InputError(f"tag {tag!r} does not occur in {', '.join(str(p) for p in paths)}")
-        ts = np.concatenate([p[0] for p in parts[tag]]) if parts[tag] else np.empty(0, np.int64)
-        value = np.concatenate([p[1] for p in parts[tag]]) if parts[tag] else np.empty(0, np.float64)
+        ts = np.concatenate([p[0] for p in parts[tag]])
+        value = np.concatenate([p[1] for p in parts[tag]])
         order = np.argsort(ts, kind="stable")
-        series[tag] = TagSeries(tag, ts[order], value[order], rows[tag], not_good[tag], not_finite[tag])
+        series[tag] = TagSeries(
+            tag,
+            ts[order],
+            value[order],
+            np.sort(np.concatenate(not_good[tag])),
+            np.sort(np.concatenate(not_finite[tag])),
+        )
     return series, problems
+
+
+def _span(ts: np.ndarray, window: Window) -> slice:
+    low = 0 if window.start is None else int(np.searchsorted(ts, window.start, side="left"))
+    high = ts.shape[0] if window.end is None else int(np.searchsorted(ts, window.end, side="left"))
+    return slice(low, high)
 
 
 def in_window(series: TagSeries, window: Window) -> tuple[np.ndarray, np.ndarray]:
     """The good samples with start <= ts < end."""
-    low = 0 if window.start is None else int(np.searchsorted(series.ts, window.start, side="left"))
-    high = (
-        series.ts.shape[0] if window.end is None else int(np.searchsorted(series.ts, window.end, side="left"))
-    )
-    return series.ts[low:high], series.value[low:high]
+    span = _span(series.ts, window)
+    return series.ts[span], series.value[span]
+
+
+def excluded_in_window(series: TagSeries, window: Window) -> tuple[int, int]:
+    """How many rows in the window were left out: (quality not good, value not finite)."""
+    not_good = series.not_good_ts[_span(series.not_good_ts, window)]
+    not_finite = series.not_finite_ts[_span(series.not_finite_ts, window)]
+    return int(not_good.shape[0]), int(not_finite.shape[0])
 
 
 def median_interval_s(ts: np.ndarray) -> float | None:

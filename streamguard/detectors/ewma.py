@@ -14,8 +14,8 @@ the centre after a signal or a gap.
 >>> import numpy as np
 >>> from streamguard.detectors.ewma import EwmaParams, EwmaState, run_ewma
 >>> params, state = EwmaParams(1), EwmaState(1)
->>> out = run_ewma(np.zeros(3, np.int32), np.array([1.0, 1.0, 1.0]), np.zeros(3, bool), params, state)
->>> [round(v, 3) for v in out.statistic]
+>>> out = run_ewma(np.zeros(3, np.int32), np.array([1.0, 1.0, 1.0]), np.zeros(3, bool), params, state, trace=True)
+>>> [round(v, 3) for v in out.trace_statistic]
 [0.2, 0.36, 0.488]
 """
 
@@ -24,8 +24,8 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
+from ..alarms import AlarmState, DetectorOutput, alarm_step, run_detector
 from ..arrays import Columns
-from . import Signals
 
 
 class EwmaParams(Columns):
@@ -40,38 +40,55 @@ class EwmaState(Columns):
     spec = {
         "e": (np.float64, (), 0.0),
         "count": (np.int64, (), 0),
+        "decay": (np.float64, (), 1.0),  # (1 - lambda)^(2i), kept as a running product
     }
 
 
 @njit(cache=True)
-def ewma_kernel(tag, z, restart, lam, L, exact, e, count, out_code, out_direction, out_statistic, out_limit):
-    for i in range(tag.shape[0]):
+def ewma_kernel(start, tag, z, restart, lam, L, exact, e, count, decay,
+                clear_after, alarm, ev_int, ev_float, trace, tr_int, tr_float):  # fmt: skip
+    n = tag.shape[0]
+    capacity = ev_int.shape[0]
+    m = 0
+    i = start
+    while i < n and m < capacity:
         t = tag[i]
         if restart[i]:
             e[t] = 0.0
             count[t] = 0
+            decay[t] = 1.0
         count[t] += 1
         w = lam[t]
         e[t] = w * z[i] + (1.0 - w) * e[t]
         variance = w / (2.0 - w)
-        if exact[t] and count[t] < 100000:
-            variance *= 1.0 - (1.0 - w) ** (2 * count[t])
+        if exact[t]:
+            decay[t] *= (1.0 - w) * (1.0 - w)
+            variance *= 1.0 - decay[t]
         bound = L[t] * np.sqrt(variance)
-        out_statistic[i] = e[t]
-        out_limit[i] = bound
-        if abs(e[t]) > bound:
-            out_code[i] = 1
-            out_direction[i] = 1 if e[t] > 0 else -1
+        statistic = e[t]
+        code = 0
+        direction = 0
+        if abs(statistic) > bound:
+            code = 1
+            direction = 1 if statistic > 0 else -1
             e[t] = 0.0
             count[t] = 0
-        else:
-            out_code[i] = 0
-            out_direction[i] = 0
+            decay[t] = 1.0
+        if code != 0 or alarm[t, 0] != 0:
+            m = alarm_step(t, i, code, direction, statistic, bound, clear_after, alarm, ev_int, ev_float, m)
+        if trace:
+            tr_int[i, 0] = code
+            tr_int[i, 1] = direction
+            tr_float[i, 0] = statistic
+            tr_float[i, 1] = bound
+        i += 1
+    return i, m
 
 
-def run_ewma(tag: np.ndarray, z: np.ndarray, restart: np.ndarray, params: EwmaParams,
-             state: EwmaState) -> Signals:  # fmt: skip
-    out = Signals.empty(tag.shape[0])
-    ewma_kernel(tag, z, restart, params.lam, params.L, params.exact, state.e, state.count,
-                out.code, out.direction, out.statistic, out.limit)  # fmt: skip
-    return out
+def run_ewma(tag: np.ndarray, z: np.ndarray, restart: np.ndarray, params: EwmaParams, state: EwmaState,
+             alarm: AlarmState | None = None, clear_after: int = 1, trace: bool = False) -> DetectorOutput:  # fmt: skip
+    def call(start, *rest):  # type: ignore[no-untyped-def]
+        return ewma_kernel(start, tag, z, restart, params.lam, params.L, params.exact, state.e, state.count, state.decay,
+                           *rest)
+
+    return run_detector(call, tag.shape[0], clear_after, alarm or AlarmState(state.capacity), trace)

@@ -19,7 +19,7 @@ import numpy as np
 from numba import njit
 
 from ..arrays import Columns
-from . import Signals
+from ..alarms import AlarmState, DetectorOutput, alarm_step, run_detector
 
 MOVING_RANGE = 1
 STANDARD_DEVIATION = 2
@@ -42,48 +42,56 @@ def _c4(n):
 
 
 @njit(cache=True)
-def spread_kernel(tag, mean, sd, n, sigma, restart, limit, previous,
-                  out_code, out_direction, out_statistic, out_limit):  # fmt: skip
-    for i in range(tag.shape[0]):
+def spread_kernel(start, tag, mean, sd, n_in, sigma, restart, limit, previous,
+                  clear_after, alarm, ev_int, ev_float, trace, tr_int, tr_float):  # fmt: skip
+    n = tag.shape[0]
+    capacity = ev_int.shape[0]
+    m = 0
+    i = start
+    while i < n and m < capacity:
         t = tag[i]
-        out_code[i] = 0
-        out_direction[i] = 0
+        code = 0
+        direction = 0
+        statistic = np.nan
+        bound = np.nan
         if restart[i]:
             previous[t] = np.nan
-        if n[i] == 1:
-            if np.isnan(previous[t]):
-                out_statistic[i] = np.nan
-                out_limit[i] = np.nan
-            else:
-                w = abs(mean[i] - previous[t]) / sigma[t]
-                upper = _D2_2 + limit[t] * _D3_2
-                out_statistic[i] = w
-                out_limit[i] = upper
-                if w > upper:
-                    out_code[i] = MOVING_RANGE
-                    out_direction[i] = 1
+        if n_in[i] == 1:
+            if not np.isnan(previous[t]):
+                statistic = abs(mean[i] - previous[t]) / sigma[t]
+                bound = _D2_2 + limit[t] * _D3_2
+                if statistic > bound:
+                    code = MOVING_RANGE
+                    direction = 1
             previous[t] = mean[i]
         else:
             previous[t] = np.nan
-            c4 = _c4(n[i])
+            c4 = _c4(n_in[i])
             half_width = limit[t] * math.sqrt(1.0 - c4 * c4)
-            w = sd[i] / sigma[t]
-            out_statistic[i] = w
-            if w > c4 + half_width:
-                out_code[i] = STANDARD_DEVIATION
-                out_direction[i] = 1
-                out_limit[i] = c4 + half_width
-            elif c4 - half_width > 0 and w < c4 - half_width:
-                out_code[i] = STANDARD_DEVIATION
-                out_direction[i] = -1
-                out_limit[i] = c4 - half_width
-            else:
-                out_limit[i] = c4 + half_width
+            statistic = sd[i] / sigma[t]
+            bound = c4 + half_width
+            if statistic > bound:
+                code = STANDARD_DEVIATION
+                direction = 1
+            elif c4 - half_width > 0 and statistic < c4 - half_width:
+                code = STANDARD_DEVIATION
+                direction = -1
+                bound = c4 - half_width
+        if code != 0 or alarm[t, 0] != 0:
+            m = alarm_step(t, i, code, direction, statistic, bound, clear_after, alarm, ev_int, ev_float, m)
+        if trace:
+            tr_int[i, 0] = code
+            tr_int[i, 1] = direction
+            tr_float[i, 0] = statistic
+            tr_float[i, 1] = bound
+        i += 1
+    return i, m
 
 
 def run_spread(tag: np.ndarray, mean: np.ndarray, sd: np.ndarray, n: np.ndarray, sigma: np.ndarray,
-               restart: np.ndarray, params: SpreadParams, state: SpreadState) -> Signals:  # fmt: skip
-    out = Signals.empty(tag.shape[0])
-    spread_kernel(tag, mean, sd, n, sigma, restart, params.limit, state.previous,
-                  out.code, out.direction, out.statistic, out.limit)  # fmt: skip
-    return out
+               restart: np.ndarray, params: SpreadParams, state: SpreadState, alarm: AlarmState | None = None,
+               clear_after: int = 1, trace: bool = False) -> DetectorOutput:  # fmt: skip
+    def call(start, *rest):  # type: ignore[no-untyped-def]
+        return spread_kernel(start, tag, mean, sd, n, sigma, restart, params.limit, state.previous, *rest)
+
+    return run_detector(call, tag.shape[0], clear_after, alarm or AlarmState(state.capacity), trace)

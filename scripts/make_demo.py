@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import argparse
 import gzip
+import math
 import sys
 import zlib
 from concurrent.futures import ThreadPoolExecutor
@@ -123,6 +124,8 @@ WIPER_TAG, WIPER_EVERY, WIPER_SAMPLES, WIPER_DISTURBANCE = "AT-203", 6 * HOUR_NS
 
 @dataclass(frozen=True)
 class Incident:
+    """A row of incidents.csv: the truth an operator would want the demo's alarms to match."""
+
     tag: str
     start: int
     end: int | None
@@ -243,8 +246,9 @@ def format_timestamps(ts: np.ndarray, with_offset: bool) -> list[str]:
 
 
 def format_values(value: np.ndarray, decimals: int) -> list[str]:
+    """Fixed decimals per tag, as a historian export writes them; a missing reading is the text NaN."""
     pattern = f"{{:.{decimals}f}}"
-    return ["NaN" if v != v else pattern.format(v) for v in value.tolist()]
+    return ["NaN" if math.isnan(v) else pattern.format(v) for v in value.tolist()]
 
 
 def day_text(series: dict[str, Series], day: int) -> str:

@@ -10,15 +10,20 @@ import argparse
 import importlib
 import sys
 from collections.abc import Sequence
+from typing import TYPE_CHECKING
 
 from . import __version__
 from .errors import StreamguardError
+
+if TYPE_CHECKING:
+    from .config import Config
+    from .limits import LimitsFile
 
 # Feature modules that add their own subcommands with register(subparsers).
 _FEATURES = ("streamguard.design.commands", "streamguard.comparison.commands", "streamguard.service_commands")
 
 
-def _load_limits(path: str | None):  # type: ignore[no-untyped-def]
+def _load_limits(path: str | None) -> LimitsFile | None:
     from .limits import load_limits
 
     return load_limits(path) if path else None
@@ -30,7 +35,8 @@ def cmd_check(args: argparse.Namespace) -> int:
     config = load_config(args.config)
     limits = _load_limits(args.limits)
     print(f"{args.config}: valid")
-    print("detectors: " + ", ".join(f"{n} {p.model_dump(by_alias=True)}" for n, p in config.detectors.enabled().items()))
+    enabled = config.detectors.enabled().items()
+    print("detectors: " + ", ".join(f"{n} {p.model_dump(by_alias=True)}" for n, p in enabled))
     print(f"subgroup: {config.subgroup.model_dump(exclude_none=True)}; alarms: clear_after {config.alarms.clear_after}")
     if limits is not None:
         print(f"{args.limits}: valid, limits version {limits.limits_version}, {len(limits.tags)} tags")
@@ -46,7 +52,7 @@ def cmd_check(args: argparse.Namespace) -> int:
     return 0
 
 
-def _print_design(config, limits) -> None:  # type: ignore[no-untyped-def]
+def _print_design(config: Config, limits: LimitsFile) -> None:
     """Per tag: the designed in-control alarm interval in time, given its sample rate."""
     try:
         from .design.interval import designed_intervals
@@ -148,6 +154,10 @@ def main(argv: Sequence[str] | None = None) -> int:
     except ValueError as exc:
         # Durations and times given on the command line.
         print(f"error: {exc}", file=sys.stderr)
+        return 2
+    except OSError as exc:
+        # Output folders and files we were asked to write.
+        print(f"error: {exc.filename or ''}: {exc.strerror or exc}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
         return 130

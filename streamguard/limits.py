@@ -20,7 +20,7 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError
 from .config import format_validation_error
 from .errors import ConfigError
 
-FORMAT = "streamguard-limits/1"
+FORMAT: Literal["streamguard-limits/1"] = "streamguard-limits/1"
 
 
 class _Model(BaseModel):
@@ -117,4 +117,9 @@ def save_limits(limits: LimitsFile, path: str | Path) -> None:
         "# sigma is the individual (process) sigma; standard_error_of_subgroup_mean is sigma/sqrt(n),\n"
         "# the spread of subgroup means only - never quote it as the spread of the product.\n"
     )
-    Path(path).write_text(header + yaml.safe_dump(data, sort_keys=False, allow_unicode=True), encoding="utf-8")
+    target = Path(path)
+    try:
+        target.parent.mkdir(parents=True, exist_ok=True)
+        target.write_text(header + yaml.safe_dump(data, sort_keys=False, allow_unicode=True), encoding="utf-8")
+    except OSError as exc:
+        raise ConfigError(f"{target}: cannot write limits file ({exc.strerror or exc})") from None

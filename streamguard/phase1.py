@@ -33,6 +33,7 @@ from .timeparse import format_time
 MIN_INDIVIDUALS = 100  # common practice
 MIN_SUBGROUPS = 25  # common practice
 MAX_PASSES = 5
+MAX_DROP_SHARE = 0.05  # beyond this a pass stops trimming and warns instead
 AUTOCORRELATION_WARNING = 0.5
 ACF_LAGS = 10
 _D2_2 = 2.0 / math.sqrt(math.pi)
@@ -101,8 +102,10 @@ def estimate_tag(name: str, mean: np.ndarray, sd: np.ndarray, n: np.ndarray, res
     minimum = MIN_INDIVIDUALS if individuals else MIN_SUBGROUPS
     what = "individual points" if individuals else "subgroups"
     if mean.shape[0] < minimum:
-        return None, f"{name}: only {mean.shape[0]} {what} in the baseline window; need at least {minimum} (common practice)"
+        return None, (f"{name}: only {mean.shape[0]} {what} in the baseline window; "
+                      f"need at least {minimum} (common practice)")
     keep = np.ones(mean.shape[0], bool)
+    untrimmed_share = 0.0
     passes: list[EstimationPass] = []
     centre = sigma = 0.0
     estimator = ""
@@ -118,6 +121,12 @@ def estimate_tag(name: str, mean: np.ndarray, sd: np.ndarray, n: np.ndarray, res
                                      points_dropped=int(outside.sum())))  # fmt: skip
         if not outside.any():
             break
+        if outside.sum() > MAX_DROP_SHARE * keep.sum():
+            # So many points beyond 3 sigma means the window is not in control (or the data are
+            # autocorrelated, which makes short-term sigma too small); trimming would only hide that.
+            untrimmed_share = float(outside.sum() / keep.sum())
+            passes[-1] = passes[-1].model_copy(update={"points_dropped": 0})
+            break
         keep &= ~outside
         if keep.sum() < minimum:
             return None, f"{name}: fewer than {minimum} {what} left after dropping points beyond 3 sigma"
@@ -129,6 +138,11 @@ def estimate_tag(name: str, mean: np.ndarray, sd: np.ndarray, n: np.ndarray, res
         warnings.append(
             f"lag-1 autocorrelation {r1:.2f} > {AUTOCORRELATION_WARNING}: limits on such data alarm far more often "
             "than designed; consider a subgroup window long enough for nearly independent means"
+        )
+    if untrimmed_share:
+        warnings.append(
+            f"{untrimmed_share:.1%} of points lie beyond the 3-sigma limits, more than {MAX_DROP_SHARE:.0%}: the "
+            "baseline window is not in control or the data are autocorrelated; points were not trimmed"
         )
     mean_n = float(np.mean(n[keep]))
     limits = TagLimits(
@@ -236,10 +250,11 @@ def run_baseline(config: Config, paths: Sequence[str | Path], *, robust: bool = 
         if not isinstance(baseline, BaselineWindow):
             skipped.append(name)
             continue
-        c = collected.get(t)
-        if c is None:
+        found = collected.get(t)
+        if found is None:
             refused[name] = f"{name}: no usable samples between {baseline.start} and {baseline.end}"
             continue
+        c = found
         limits, why = estimate_tag(name, np.concatenate(c.mean), np.concatenate(c.sd), np.concatenate(c.n),
                                    np.concatenate(c.restart), robust)  # fmt: skip
         if limits is None:

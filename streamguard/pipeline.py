@@ -225,7 +225,7 @@ class Pipeline:
 
 
 @njit(cache=True)
-def standardize_kernel(tag, mean, n, mu, sigma):  # type: ignore[no-untyped-def]
+def standardize_kernel(tag, mean, n, mu, sigma):
     z = np.empty(tag.shape[0])
     for i in range(tag.shape[0]):
         t = tag[i]

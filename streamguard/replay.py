@@ -162,5 +162,6 @@ def format_summary(summary: dict[str, Any]) -> str:
                 lines.append(f"  {reason}: {example}")
     if summary["tags_without_limits"]:
         names = summary["tags_without_limits"]
-        lines.append(f"skipped, no limits ({len(names)}): " + ", ".join(names[:20]) + (" ..." if len(names) > 20 else ""))
+        more = " ..." if len(names) > 20 else ""
+        lines.append(f"skipped, no limits ({len(names)}): " + ", ".join(names[:20]) + more)
     return "\n".join(lines)

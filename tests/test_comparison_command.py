@@ -23,7 +23,7 @@ from streamguard.errors import InputError, UsageError
 
 START = np.datetime64("2026-03-02T00:00:00", "s")
 CHANGE = "2026-03-02T01:00:00Z"
-GOOD, BAD = 0, 2  # quality column as written: OPC UA style, 0 is good
+GOOD, BAD = "good", "bad"  # quality words, which the reader decodes without an encoding setting
 
 
 def iso(seconds: np.ndarray) -> list[str]:
@@ -38,7 +38,7 @@ def write_long_csv(
             "timestamp": pa.array(timestamps, pa.string()),
             "tag": pa.array(tags, pa.string()),
             "value": pa.array(values, pa.float64()),
-            "quality": pa.array(quality, pa.int64()),
+            "quality": pa.array(quality.tolist()),
         }
     )
     pacsv.write_csv(table, path)
@@ -60,7 +60,7 @@ def step_file(tmp_path: Path) -> Path:
     seconds = np.arange(7200)
     noise = lfilter([1.0], [1.0, -0.6], rng.normal(0.0, 0.08, seconds.shape[0]))
     values = 20.0 + noise + np.where(seconds >= 3600, 0.5, 0.0)
-    quality = np.full(seconds.shape[0], GOOD)
+    quality = np.full(seconds.shape[0], GOOD, dtype=object)
     spikes = rng.choice(seconds.shape[0], 40, replace=False)
     values[spikes] = 1e6  # a disowned value that would wreck the mean if it were used
     quality[spikes] = BAD
@@ -127,7 +127,7 @@ def twin_file(tmp_path: Path) -> Path:
     tags = ["FT-1"] * seconds.shape[0] + ["FT-2"] * int(keep.sum())
     values = np.concatenate([first, second[keep]])
     return write_long_csv(
-        tmp_path / "twins.csv", stamps, tags, values, np.zeros(values.shape[0], dtype=np.int64)
+        tmp_path / "twins.csv", stamps, tags, values, np.full(values.shape[0], GOOD, dtype=object)
     )
 
 
@@ -156,6 +156,32 @@ def test_tags_form_compares_two_tags_over_a_window(
         run(["compare", "tags", "--tag", "FT-1", "--tag", "FT-2", "--json", str(twin_file)], capsys)
     )
     assert document["result"]["welch"]["difference"] == pytest.approx(-25.5, abs=1.0)
+
+
+def test_config_input_section_sets_columns_and_quality_encoding(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """A file with a 'reading' column and OPC UA integer status codes (0 Good, 0x80000000 Bad) is read
+    through --config; the bad rows are left out (OPC 10000-4 StatusCode severity bits)."""
+    seconds = np.arange(600)
+    values = np.where(seconds % 2 == 0, 1.0, 3.0) + np.where(seconds >= 300, 1.0, 0.0)
+    status = np.where(seconds % 100 == 0, 0x80000000, 0)
+    table = pa.table(
+        {
+            "timestamp": pa.array(iso(seconds)),
+            "tag": pa.array(["LI-7"] * 600),
+            "reading": pa.array(values),
+            "quality": pa.array(status, pa.int64()),
+        }
+    )
+    data = tmp_path / "codes.csv"
+    pacsv.write_csv(table, data)
+    config = tmp_path / "site.yaml"
+    config.write_text("input:\n  value: reading\n  quality_encoding: opcua\n", encoding="utf-8")
+    argv = ["compare", "before-after", "--tag", "LI-7", "--at", "2026-03-02T00:05:00Z", "--method", "naive"]
+    document = json.loads(run([*argv, "--config", str(config), "--json", str(data)], capsys))
+    assert [side["not_good"] for side in document["inputs"]] == [3, 3]
+    assert document["result"]["welch"]["difference"] == pytest.approx(1.0, abs=1e-12)
 
 
 @pytest.mark.parametrize(

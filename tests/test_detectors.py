@@ -77,6 +77,11 @@ def test_ewma_matches_roberts_recursion_and_limits(exact: bool) -> None:
             e, i_since = 0.0, 0
 
 
+def _monotone(w: list[float]) -> bool:
+    pairs = list(zip(w, w[1:], strict=False))
+    return all(b > a for a, b in pairs) or all(b < a for a, b in pairs)
+
+
 def _reference_rules(z: np.ndarray, rules: list[str], limit: float = 3.0, run_length: int = 8) -> list[str]:
     """Western Electric (1956) and Nelson (1984) rules transcribed literally over a list of points;
     the history restarts after any signal."""
@@ -86,8 +91,10 @@ def _reference_rules(z: np.ndarray, rules: list[str], limit: float = 3.0, run_le
         history.append(float(x))
         h = history
         hit = ""
+        def last(m: int, h: list[float] = h) -> list[float] | None:
+            return h[-m:] if len(h) >= m else None
+
         for rule in rules:
-            last = lambda m: h[-m:] if len(h) >= m else None  # noqa: E731
             if rule in ("we1", "nelson1") and abs(x) > limit:
                 hit = rule
             elif rule in ("we2", "nelson5") and (w := last(3)) is not None and (
@@ -103,7 +110,7 @@ def _reference_rules(z: np.ndarray, rules: list[str], limit: float = 3.0, run_le
                 if (w := last(m)) is not None and (all(v > 0 for v in w) or all(v < 0 for v in w)):
                     hit = rule
             elif rule == "nelson3" and (w := last(6)) is not None and (
-                    all(b > a for a, b in zip(w, w[1:])) or all(b < a for a, b in zip(w, w[1:]))):
+                    _monotone(w)):
                 hit = rule
             elif rule == "nelson4" and (w := last(14)) is not None:
                 d = np.sign(np.diff(w))

@@ -72,11 +72,11 @@ def _banded_rows(start: np.ndarray, grid: _Grid, lam: float, mean: float) -> spa
     band = min(cells, int(math.ceil(2.0 * reach / width)) + 2)
     centre = (1.0 - lam) * start + lam * mean
     first = np.clip(np.searchsorted(grid.edges, centre - reach) - 1, 0, max(cells - band, 0))
+    edges = grid.edges[first[:, None] + np.arange(band + 1)[None, :]]
+    below = ndtr((edges - (1.0 - lam) * start[:, None]) / lam - mean)
     columns = first[:, None] + np.arange(band)[None, :]
-    low = ndtr((grid.edges[columns] - (1.0 - lam) * start[:, None]) / lam - mean)
-    high = ndtr((grid.edges[columns + 1] - (1.0 - lam) * start[:, None]) / lam - mean)
     rows = np.broadcast_to(np.arange(start.shape[0])[:, None], columns.shape)
-    return sparse.csr_matrix(((high - low).ravel(), (rows.ravel(), columns.ravel())),
+    return sparse.csr_matrix((np.diff(below, axis=1).ravel(), (rows.ravel(), columns.ravel())),
                              shape=(start.shape[0], cells))  # fmt: skip
 
 
@@ -158,6 +158,12 @@ def ewma_arl(lam: float, L: float, limits: str, mean: float, tolerance: float = 
         return result, "Markov chain (Lucas & Saccucci 1990), Richardson-extrapolated"
     result = converge(lambda m: ExactLimitsStart(lam, L, mean, m).arl(), base, tolerance, _MAX_HALF_CELLS)
     return result, "time-inhomogeneous Markov chain (exact limits), Richardson-extrapolated"
+
+
+def quick_asymptotic_arl(lam: float, L: float, mean: float) -> float:
+    """Two grids and one Richardson step, no convergence check: ~1e-4 relative, for searches."""
+    base = _coarse_half_cells(lam, L)
+    return extrapolate(asymptotic_chain(lam, L, mean, base).arl(), asymptotic_chain(lam, L, mean, 2 * base).arl())
 
 
 def ewma_run_length(lam: float, L: float, limits: str, shift: float, chart_shift: float,

@@ -30,8 +30,8 @@ from scipy.stats import norm
 
 from ..durations import format_duration, parse_duration
 from ..errors import UsageError
-from .cusum_arl import cusum_arl
-from .ewma_arl import ewma_arl
+from .cusum_arl import cusum_arl, siegmund_arl
+from .ewma_arl import ewma_arl, quick_asymptotic_arl
 from .shewhart_arl import ORDER_RULES, RULE_NAMES, canonical_rules, shewhart_arl
 
 _BUDGET = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*/\s*(\S+)\s*$")
@@ -136,37 +136,65 @@ class TuningPlan:
         }
 
 
-def _solve_increasing(function: Callable[[float], float], target: float, low: float, high: float,
-                      ceiling: float) -> float | None:  # fmt: skip
-    """Root of log f(x) = log target for f increasing; None when even ``ceiling`` falls short."""
+def _solve_increasing(function: Callable[[float], float], target: float, guess: float, ceiling: float,
+                      floor: float = 1e-3) -> float | None:  # fmt: skip
+    """x with f(x) = target for an increasing f; None when even f(ceiling) falls short.
+
+    log f is smooth and nearly straight in x, so a secant step from a good guess converges in a few
+    evaluations; a bracketing search (Brent) takes over if the secant misbehaves.
+    """
     goal = math.log(target)
 
     def gap(x: float) -> float:
         return math.log(function(x)) - goal
 
+    x0, x1 = guess, guess * 1.02
+    g0, g1 = gap(x0), gap(x1)
+    for _ in range(30):
+        if g1 == g0:
+            break
+        x2 = x1 - g1 * (x1 - x0) / (g1 - g0)
+        if not floor <= x2 <= ceiling:
+            break
+        x0, g0, x1 = x1, g1, x2
+        g1 = gap(x1)
+        if abs(x1 - x0) <= 1e-8 * x1 or g1 == 0.0:
+            return x1
+    low, high = floor, max(guess, floor * 2)
     while gap(high) < 0:
         if high >= ceiling:
             return None
         low, high = high, min(2.0 * high, ceiling)
     if gap(low) > 0:
         return low
-    return float(optimize.brentq(gap, low, high, xtol=1e-7, rtol=1e-10))
+    return float(optimize.brentq(gap, low, high, xtol=1e-9, rtol=1e-10))
 
 
 def solve_cusum_h(k: float, target_arl: float) -> float:
-    """h for which the two-sided zero-state ARL of the CUSUM equals ``target_arl``."""
+    """h for which the two-sided zero-state ARL of the CUSUM equals ``target_arl``.
+
+    Siegmund's approximation, solved first, is the starting guess: it is within a few percent.
+    """
+    approximate = optimize.brentq(lambda h: math.log(siegmund_arl(k, h, 0.0) / target_arl), 1e-3, 1e3)
     h = _solve_increasing(
-        lambda h: cusum_arl(k, h, 0.0, 0.0, "two", _SOLVE_TOLERANCE)[0].value, target_arl, 0.05, 4.0, 400.0
+        lambda h: cusum_arl(k, h, 0.0, 0.0, "two", _SOLVE_TOLERANCE)[0].value, target_arl, approximate, 400.0
     )
     if h is None:
         raise UsageError(f"no CUSUM decision interval reaches an in-control ARL of {target_arl:.4g}")
     return h
 
 
-def solve_ewma_L(lam: float, target_arl: float, limits: str = "asymptotic") -> float:
-    L = _solve_increasing(
-        lambda L: ewma_arl(lam, L, limits, 0.0, _SOLVE_TOLERANCE)[0].value, target_arl, 0.5, 3.0, 40.0
-    )
+def solve_ewma_L(lam: float, target_arl: float, limits: str = "asymptotic", guess: float | None = None,
+                 quick: bool = False) -> float:  # fmt: skip
+    """L for the required in-control ARL; ``quick`` uses the two-grid ARL meant for searches."""
+
+    def in_control(L: float) -> float:
+        if quick and limits == "asymptotic":
+            return quick_asymptotic_arl(lam, L, 0.0)
+        return ewma_arl(lam, L, limits, 0.0, _SOLVE_TOLERANCE)[0].value
+
+    start = guess if guess is not None else float(norm.isf(1.0 / (2.0 * target_arl)))
+    L = _solve_increasing(in_control, target_arl, start, 40.0)
     if L is None:
         raise UsageError(f"no EWMA limit reaches an in-control ARL of {target_arl:.4g}")
     return L
@@ -174,29 +202,33 @@ def solve_ewma_L(lam: float, target_arl: float, limits: str = "asymptotic") -> f
 
 def solve_ewma(target_arl: float, chart_shift: float) -> tuple[float, float]:
     """(lambda, L) with the required in-control ARL and the smallest ARL at ``chart_shift``."""
+    solved: dict[float, tuple[float, float]] = {}  # lambda -> (L, ARL at the shift)
+    last_L: list[float] = []
 
     def detection(log_lambda: float) -> float:
         lam = math.exp(log_lambda)
-        L = solve_ewma_L(lam, target_arl)
-        return ewma_arl(lam, L, "asymptotic", chart_shift, 1e-3)[0].value
+        if lam not in solved:
+            L = solve_ewma_L(lam, target_arl, guess=last_L[-1] if last_L else None, quick=True)
+            last_L.append(L)
+            solved[lam] = (L, quick_asymptotic_arl(lam, L, chart_shift))
+        return solved[lam][1]
 
     low, high = (math.log(x) for x in LAMBDA_RANGE)
     best = optimize.minimize_scalar(detection, bounds=(low, high), method="bounded", options={"xatol": 0.02})
     lam = math.exp(float(best.x))
-    # The search stops short of the bounds; take a bound when it is at least as good.
+    # The bounded search stops short of the bounds; take a bound when it is at least as good.
     for edge in LAMBDA_RANGE:
         if detection(math.log(edge)) <= detection(math.log(lam)):
             lam = edge
-    return lam, solve_ewma_L(lam, target_arl)
+    return lam, solved[lam][0]
 
 
 def solve_shewhart_limit(target_arl: float, rules: Sequence[str], run_length: int) -> float | None:
     """Limit multiple for the required ARL; None when the run rules alone alarm more often than allowed."""
     if canonical_rules(rules) == {"we1"}:
         return float(norm.isf(1.0 / (2.0 * target_arl)))
-    return _solve_increasing(
-        lambda limit: shewhart_arl(limit, rules, run_length, 0.0)[0], target_arl, 1.0, 3.0, 12.0
-    )
+    guess = float(norm.isf(1.0 / (2.0 * target_arl)))
+    return _solve_increasing(lambda limit: shewhart_arl(limit, rules, run_length, 0.0)[0], target_arl, guess, 12.0)
 
 
 def _delay(arl_points: float, point_period_s: float, within_s: float | None) -> tuple[float, bool | None]:
@@ -262,7 +294,7 @@ def _cusum_option(required: float, mean: float, point_period_s: float, within_s:
 def _ewma_option(required: float, mean: float, point_period_s: float, within_s: float | None) -> TuningOption:
     lam, L = solve_ewma(required, mean)
     lam = round(lam, 3)
-    L = round(solve_ewma_L(lam, required), 4)
+    L = round(solve_ewma_L(lam, required, guess=L), 4)
     in_control = ewma_arl(lam, L, "asymptotic", 0.0)[0].value
     detection, method = ewma_arl(lam, L, "asymptotic", mean)
     delay, meets = _delay(detection.value, point_period_s, within_s)

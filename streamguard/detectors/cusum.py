@@ -82,8 +82,9 @@ def cusum_kernel(start, tag, z, restart, k, h, headstart, upper, lower, started,
 
 
 def run_cusum(tag: np.ndarray, z: np.ndarray, restart: np.ndarray, params: CusumParams, state: CusumState,
-              alarm: AlarmState | None = None, clear_after: int = 1, trace: bool = False) -> DetectorOutput:  # fmt: skip
-    def call(start, *rest):  # type: ignore[no-untyped-def]
+              alarm: AlarmState | None = None, clear_after: int = 1,
+              trace: bool = False) -> DetectorOutput:  # fmt: skip
+    def call(start, *rest):
         return cusum_kernel(start, tag, z, restart, params.k, params.h, params.headstart,
                             state.upper, state.lower, state.started, *rest)  # fmt: skip
 

@@ -87,8 +87,8 @@ def ewma_kernel(start, tag, z, restart, lam, L, exact, e, count, decay,
 
 def run_ewma(tag: np.ndarray, z: np.ndarray, restart: np.ndarray, params: EwmaParams, state: EwmaState,
              alarm: AlarmState | None = None, clear_after: int = 1, trace: bool = False) -> DetectorOutput:  # fmt: skip
-    def call(start, *rest):  # type: ignore[no-untyped-def]
-        return ewma_kernel(start, tag, z, restart, params.lam, params.L, params.exact, state.e, state.count, state.decay,
-                           *rest)
+    def call(start, *rest):
+        return ewma_kernel(start, tag, z, restart, params.lam, params.L, params.exact,
+                           state.e, state.count, state.decay, *rest)  # fmt: skip
 
     return run_detector(call, tag.shape[0], clear_after, alarm or AlarmState(state.capacity), trace)

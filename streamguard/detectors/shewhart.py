@@ -183,7 +183,7 @@ def shewhart_kernel(start, tag, z, restart, limit, order, mask, run_length, zone
 def run_shewhart(tag: np.ndarray, z: np.ndarray, restart: np.ndarray, params: ShewhartParams,
                  state: ShewhartState, alarm: AlarmState | None = None, clear_after: int = 1,
                  trace: bool = False) -> DetectorOutput:  # fmt: skip
-    def call(start, *rest):  # type: ignore[no-untyped-def]
+    def call(start, *rest):
         return shewhart_kernel(start, tag, z, restart, params.limit, params.order, params.mask, params.run_length,
                                state.zones, state.runs, state.last_difference, state.previous, *rest)  # fmt: skip
 

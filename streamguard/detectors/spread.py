@@ -18,8 +18,8 @@ import math
 import numpy as np
 from numba import njit
 
-from ..arrays import Columns
 from ..alarms import AlarmState, DetectorOutput, alarm_step, run_detector
+from ..arrays import Columns
 
 MOVING_RANGE = 1
 STANDARD_DEVIATION = 2
@@ -91,7 +91,7 @@ def spread_kernel(start, tag, mean, sd, n_in, sigma, restart, limit, previous,
 def run_spread(tag: np.ndarray, mean: np.ndarray, sd: np.ndarray, n: np.ndarray, sigma: np.ndarray,
                restart: np.ndarray, params: SpreadParams, state: SpreadState, alarm: AlarmState | None = None,
                clear_after: int = 1, trace: bool = False) -> DetectorOutput:  # fmt: skip
-    def call(start, *rest):  # type: ignore[no-untyped-def]
+    def call(start, *rest):
         return spread_kernel(start, tag, mean, sd, n, sigma, restart, params.limit, state.previous, *rest)
 
     return run_detector(call, tag.shape[0], clear_after, alarm or AlarmState(state.capacity), trace)

@@ -1,0 +1,16 @@
+#!/usr/bin/env bash
+# Set up, then run every check: lint (ruff), types (mypy), and the test suite (pytest).
+set -euo pipefail
+cd "$(dirname "$0")/.."
+bash scripts/setup.sh
+# Tests that touch MQTT start their own broker process; install Debian's mosquitto when it is missing.
+if ! command -v mosquitto >/dev/null 2>&1 && [ ! -x /usr/sbin/mosquitto ]; then
+  if [ "$(id -u)" = 0 ]; then
+    apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq mosquitto >/dev/null
+  else
+    sudo apt-get update -qq && sudo DEBIAN_FRONTEND=noninteractive apt-get install -y -qq mosquitto >/dev/null
+  fi
+fi
+.venv/bin/ruff check streamguard tests scripts benchmarks
+.venv/bin/mypy
+.venv/bin/python -m pytest -q "$@"

@@ -20,7 +20,8 @@ if TYPE_CHECKING:
     from .limits import LimitsFile
 
 # Feature modules that add their own subcommands with register(subparsers).
-_FEATURES = ("streamguard.design.commands", "streamguard.comparison.commands", "streamguard.service_commands")
+_FEATURES = ("streamguard.design.commands", "streamguard.comparison.commands", "streamguard.service_commands",
+             "streamguard.review.commands")
 
 
 def _load_limits(path: str | None) -> LimitsFile | None:
@@ -89,11 +90,15 @@ def cmd_replay(args: argparse.Namespace) -> int:
     config = load_config(args.config)
     limits = _load_limits(args.limits)
     result = run_replay(config, limits, args.files, strict=args.strict, show_progress=sys.stderr.isatty())
+    review_lines: list[str] = []
+    if args.report or args.incidents:
+        from .review import review_replay
+
+        review_lines = review_replay(result, config, report_path=args.report, incidents_path=args.incidents)
     events_path, summary_path = write_outputs(result, args.out)
-    extra = getattr(args, "after_replay", None)
-    if extra:
-        extra(args, result)
     print(format_summary(result.summary))
+    for line in review_lines:
+        print(line)
     print(f"wrote {events_path} and {summary_path}")
     return 0
 
@@ -125,6 +130,8 @@ def build_parser() -> argparse.ArgumentParser:
     replay.add_argument("--limits", "-l")
     replay.add_argument("--out", "-o", required=True, help="output folder for events.jsonl and summary.json")
     replay.add_argument("--strict", action="store_true", help="stop at the first bad row with file:line")
+    replay.add_argument("--report", metavar="HTML", help="write a self-contained HTML review of the replay")
+    replay.add_argument("--incidents", metavar="CSV", help="known incidents (tag,start,end,label) to score detection")
     replay.add_argument("files", nargs="+", metavar="FILE")
     replay.set_defaults(handler=cmd_replay)
 

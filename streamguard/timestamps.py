@@ -37,10 +37,10 @@ _NAIVE_NS = pa.timestamp("ns")
 
 # A date first, and a zone designator after a time of day: the date's own "-01" must not read as an offset.
 _OFFSET_PATTERN = r"^\d{4}-\d{2}-\d{2}[T ]\d{2}[^+-]*(Z|[+-]\d{2}(:?\d{2})?)$"
-# Cheap screens run before the exact casts, so a column full of junk does not fall to cell-by-cell search.
-# They may let through text the cast then rejects, never the reverse.
-_ISO_SCREEN = r"^\d{4}-\d{2}-\d{2}"
-NUMBER_SCREEN = r"^[+-]?(\d|\.\d|(?i:inf|nan))"
+# Screens run before the exact casts, so a column full of junk does not fall to the halving search.
+# Each accepts a little more than pyarrow's parser does (that rest is found by the search), never less.
+_ISO_SCREEN = r"^\d{4}-\d{2}-\d{2}([T ]\d{2}(:?\d{2}(:?\d{2}([.,]\d+)?)?)?)?(Z|[+-]\d{2}(:?\d{2})?)?$"
+NUMBER_SCREEN = r"^[+-]?((\d+\.?\d*|\.\d+)([eE][+-]?\d+)?|(?i:nan|inf|infinity))$"
 
 
 def cast_marking_failures(text: pa.Array, target: pa.DataType, screen: str | None) -> tuple[np.ndarray, np.ndarray]:
@@ -116,13 +116,21 @@ def parse_numbers(text: pa.Array) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Decimal text to (float64, missing mask, bad mask); NaN and inf are numbers, empty cells are missing."""
     text = _as_string(text)
     missing = ~_present(text)
-    values, bad = cast_marking_failures(pc.if_else(pa.array(missing), pa.scalar(None, text.type), text),
-                                        pa.float64(), NUMBER_SCREEN)
+    values, bad = cast_marking_failures(
+        pc.if_else(pa.array(missing), pa.scalar(None, text.type), text), pa.float64(), NUMBER_SCREEN
+    )
     return values, missing, bad & ~missing
 
 
+def epoch_unit_of(numbers: np.ndarray, where: str) -> str:
+    """Pick the epoch unit of a file from a sample of its timestamps: the typical (median) magnitude
+    decides, so a few values written in the other unit are caught as out of range, not followed."""
+    finite = np.abs(numbers[np.isfinite(numbers)])
+    return epoch_unit_for(float(np.median(finite)) if finite.size else 0.0, where)
+
+
 def epoch_unit_for(magnitude: float, where: str) -> str:
-    """Pick epoch seconds or milliseconds from the largest absolute value seen (the ``auto`` rule)."""
+    """Pick epoch seconds or milliseconds by magnitude (the ``auto`` rule)."""
     if magnitude < EPOCH_SECONDS_BELOW:
         return "epoch_s"
     if magnitude < EPOCH_MILLISECONDS_BELOW:
@@ -172,7 +180,7 @@ def detect_kind(sample: pa.Array, timestamp_format: str, where: str) -> str:
     if timestamp_format == "auto" and len(present) > 0:
         numbers, _, bad = parse_numbers(present)
         if not bad.any():
-            return epoch_unit_for(float(np.max(np.abs(numbers))), where)
+            return epoch_unit_of(numbers, where)
     if timestamp_format not in ("auto", "iso"):
         raise InputError(f"{where}: unknown timestamp format {timestamp_format!r}; use one of {TIMESTAMP_FORMATS}")
     offset = has_offset(present)
@@ -210,8 +218,9 @@ def typed_to_ns(array: pa.Array, kind: str, *, checked_range: bool = False) -> t
     if pa.types.is_integer(array.type) or pa.types.is_floating(array.type) or pa.types.is_decimal(array.type):
         if kind not in NS_PER_UNIT:
             raise InputError(f"numeric timestamps need an epoch unit, not {kind!r}")
-        ns, out_of_range = epoch_to_ns(_to_numpy(array.cast(pa.float64()), np.dtype(np.float64)), kind,
-                                       checked_range=checked_range)
+        ns, out_of_range = epoch_to_ns(
+            _to_numpy(array.cast(pa.float64()), np.dtype(np.float64)), kind, checked_range=checked_range
+        )
         return ns, bad | out_of_range
     return parse_kind(array, kind, checked_range=checked_range)
 

@@ -175,7 +175,10 @@ def solve_cusum_h(k: float, target_arl: float) -> float:
 
     Siegmund's approximation, solved first, is the starting guess: it is within a few percent.
     """
-    approximate = optimize.brentq(lambda h: math.log(siegmund_arl(k, h, 0.0) / target_arl), 1e-3, 1e3)
+    high = 1.0
+    while siegmund_arl(k, high, 0.0) < target_arl and high < 400.0:
+        high *= 2.0
+    approximate = optimize.brentq(lambda h: math.log(siegmund_arl(k, h, 0.0) / target_arl), 1e-3, high)
     h = _solve_increasing(
         lambda h: cusum_arl(k, h, 0.0, 0.0, "two", _SOLVE_TOLERANCE)[0].value, target_arl, approximate, 400.0
     )

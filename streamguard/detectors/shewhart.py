@@ -127,28 +127,35 @@ def shewhart_kernel(start, tag, z, restart, limit, order, mask, run_length, zone
             previous[t] = x
             runs[t, _INSIDE] = runs[t, _INSIDE] + 1 if abs(x) < 1.0 else 0
             runs[t, _OUTSIDE] = runs[t, _OUTSIDE] + 1 if abs(x) > 1.0 else 0
-        # Every rule's verdict as one bit (up and down apart); rules without a direction use "up".
+        # A rule can only start to hold at this point if the point itself is beyond 1 sigma (or beyond the
+        # rule-1 limit), extends a same-side run, or a sequence rule is in use: most in-control points skip
+        # the verdicts entirely.
         side = runs[t, _SIDE]
-        trend = runs[t, _TREND]
-        up = (
-            (x > limit[t]) * _BIT_RULE1
-            | (_POPCOUNT[zones[t, _ABOVE2] & 7] >= 2) * _BIT_TWO_OF_THREE
-            | (_POPCOUNT[zones[t, _ABOVE1]] >= 4) * _BIT_FOUR_OF_FIVE
-            | (side >= run_length[t]) * (1 << WE4)
-            | (side >= 9) * (1 << N2)
-            | (trend >= 5) * (1 << N3)
-            | (runs[t, _ALTERNATING] >= 13) * (1 << N4)
-            | (runs[t, _INSIDE] >= 15) * (1 << N7)
-            | (runs[t, _OUTSIDE] >= 8) * (1 << N8)
-        )
-        down = (
-            (x < -limit[t]) * _BIT_RULE1
-            | (_POPCOUNT[zones[t, _BELOW2] & 7] >= 2) * _BIT_TWO_OF_THREE
-            | (_POPCOUNT[zones[t, _BELOW1]] >= 4) * _BIT_FOUR_OF_FIVE
-            | (side <= -run_length[t]) * (1 << WE4)
-            | (side <= -9) * (1 << N2)
-            | (trend <= -5) * (1 << N3)
-        )
+        up = 0
+        down = 0
+        if (abs(x) > 1.0 or abs(x) > limit[t] or abs(side) >= run_length[t] or abs(side) >= 9
+                or (mask[t] & _SEQUENCE_RULES) != 0):
+            # Every rule's verdict as one bit (up and down apart); rules without a direction use "up".
+            trend = runs[t, _TREND]
+            up = (
+                (x > limit[t]) * _BIT_RULE1
+                | (_POPCOUNT[zones[t, _ABOVE2] & 7] >= 2) * _BIT_TWO_OF_THREE
+                | (_POPCOUNT[zones[t, _ABOVE1]] >= 4) * _BIT_FOUR_OF_FIVE
+                | (side >= run_length[t]) * (1 << WE4)
+                | (side >= 9) * (1 << N2)
+                | (trend >= 5) * (1 << N3)
+                | (runs[t, _ALTERNATING] >= 13) * (1 << N4)
+                | (runs[t, _INSIDE] >= 15) * (1 << N7)
+                | (runs[t, _OUTSIDE] >= 8) * (1 << N8)
+            )
+            down = (
+                (x < -limit[t]) * _BIT_RULE1
+                | (_POPCOUNT[zones[t, _BELOW2] & 7] >= 2) * _BIT_TWO_OF_THREE
+                | (_POPCOUNT[zones[t, _BELOW1]] >= 4) * _BIT_FOUR_OF_FIVE
+                | (side <= -run_length[t]) * (1 << WE4)
+                | (side <= -9) * (1 << N2)
+                | (trend <= -5) * (1 << N3)
+            )
         code = 0
         direction = 0
         if (up | down) & mask[t]:

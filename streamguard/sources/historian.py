@@ -152,7 +152,9 @@ def read_historian(
     return _stream([files[i] for i in order], strict, ReadProblems() if problems is None else problems, chunk_rows)
 
 
-def _stream(files: list[_CsvFile | _ParquetFile], strict: bool, problems: ReadProblems, chunk_rows: int) -> Iterator[RawChunk]:
+def _stream(
+    files: list[_CsvFile | _ParquetFile], strict: bool, problems: ReadProblems, chunk_rows: int
+) -> Iterator[RawChunk]:
     for file in files:
         report = _Report(problems, strict, file.place)
         for piece in file.pieces(report):
@@ -209,25 +211,32 @@ class _Layout:
 def _layout_of(columns: list[str], settings: InputSettings, where: str) -> _Layout:
     listed = ", ".join(repr(name) for name in columns)
     if settings.timestamp not in columns:
-        raise InputError(f"{where}: no timestamp column {settings.timestamp!r} (columns: {listed}); set input.timestamp")
+        raise InputError(
+            f"{where}: no timestamp column {settings.timestamp!r} (columns: {listed}); set input.timestamp"
+        )
     shape = settings.shape
     if shape == "auto":
         shape = "long" if settings.tag in columns else "wide"
     if shape == "long":
         for key, name in (("tag", settings.tag), ("value", settings.value)):
             if name not in columns:
-                raise InputError(f"{where}: no {key} column {name!r} for a long file (columns: {listed}); set input.{key}")
+                raise InputError(
+                    f"{where}: no {key} column {name!r} for a long file (columns: {listed}); set input.{key}"
+                )
         quality = settings.quality if settings.quality in columns else None
         layout = _Layout("long", settings.timestamp, settings.tag, settings.value, quality)
     else:
         present = set(columns)
         tags = tuple(
-            name for name in columns
+            name
+            for name in columns
             if name != settings.timestamp
             and not (name.endswith(QUALITY_SUFFIX) and name[: -len(QUALITY_SUFFIX)] in present)
         )
         if not tags:
-            raise InputError(f"{where}: a wide file needs a column per tag beside {settings.timestamp!r} (columns: {listed})")
+            raise InputError(
+                f"{where}: a wide file needs a column per tag beside {settings.timestamp!r} (columns: {listed})"
+            )
         qualities = tuple(name + QUALITY_SUFFIX if name + QUALITY_SUFFIX in present else None for name in tags)
         layout = _Layout("wide", settings.timestamp, tags=tags, tag_qualities=qualities)
     for name in layout.columns:
@@ -249,16 +258,19 @@ class _Report:
         self.place = place
         self.earliest: tuple[int, str] | None = None
 
-    def skip(self, reason: str, lines: np.ndarray, describe: Callable[[int], str]) -> None:
-        """Record skipped rows at ``lines`` (ascending); ``describe(i)`` words the i-th one."""
-        count = int(lines.shape[0])
+    def skip(self, reason: str, items: np.ndarray, lines: np.ndarray, describe: Callable[[int], str]) -> None:
+        """Record skipped rows (or cells) ``items`` found at ``lines`` (ascending).
+
+        ``describe(item)`` words one of them; it is called only for the few kept as examples.
+        """
+        count = int(items.shape[0])
         if count == 0:
             return
         room = max(0, self.problems.examples_per_reason - len(self.problems.examples.get(reason, [])))
-        examples = [f"{self.place(int(lines[i]))}: {describe(i)}" for i in range(min(room, count))]
+        examples = [f"{self.place(int(lines[i]))}: {describe(int(items[i]))}" for i in range(min(room, count))]
         self.problems.add(reason, count, examples)
         if self.strict and (self.earliest is None or int(lines[0]) < self.earliest[0]):
-            self.earliest = (int(lines[0]), f"{self.place(int(lines[0]))}: {describe(0)}")
+            self.earliest = (int(lines[0]), f"{self.place(int(lines[0]))}: {describe(int(items[0]))}")
 
     def end_piece(self, rows_read: int) -> None:
         self.problems.rows_read += rows_read
@@ -293,7 +305,8 @@ class _Columns:
     where: str
 
     def array(self, name: str) -> pa.Array:
-        return self.table.column(name).combine_chunks()
+        column = self.table.column(name)
+        return column.chunk(0) if column.num_chunks == 1 else column.combine_chunks()
 
     def text(self, name: str, row: int) -> str:
         scalar = self.table.column(name)[row]
@@ -323,8 +336,12 @@ def _numbers_of(columns: _Columns, name: str) -> tuple[np.ndarray, np.ndarray, n
     kind = array.type.value_type if pa.types.is_dictionary(array.type) else array.type
     if pa.types.is_string(kind) or pa.types.is_large_string(kind):
         return timestamps.parse_numbers(array)
-    if not (pa.types.is_integer(kind) or pa.types.is_floating(kind) or pa.types.is_decimal(kind)
-            or pa.types.is_boolean(kind)):
+    if not (
+        pa.types.is_integer(kind)
+        or pa.types.is_floating(kind)
+        or pa.types.is_decimal(kind)
+        or pa.types.is_boolean(kind)
+    ):
         raise InputError(f"{columns.where}: column {name!r} holds {array.type}, not numbers")
     numbers = array.cast(pa.float64())
     missing = _null_mask(numbers)
@@ -392,21 +409,21 @@ def _long_piece(columns: _Columns, report: _Report, first_line: int, row_lines: 
     quality = _qualities_of(columns, layout.quality, rows)
     lines = row_lines if row_lines is not None else first_line + np.arange(rows, dtype=np.int64)
     blank = _blank_rows(columns) if ts_bad.any() else np.zeros(rows, dtype=bool)
-    time_words = _TIME_WORDS[columns.time_kind] if columns.time_kind in _TIME_WORDS else "a time"
+    describe = _Wording(columns)
+    # A row with several faults is counted once, under the first reason in this order.
     checks: list[tuple[str, np.ndarray | None, Callable[[int], str]]] = [
-        (BAD_TIMESTAMP, ts_bad, lambda row: _describe(columns.text(layout.timestamp, row), "timestamp", time_words)),
-        (MISSING_TAG, tag_missing, lambda row: "empty tag"),
-        (BAD_VALUE, value_bad, lambda row: f"value {columns.text(layout.value, row)!r} is not a number"),
-        (MISSING_VALUE, value_missing, lambda row: "empty value"),
-        (BAD_QUALITY_CODE, quality == INVALID,
-         lambda row: _describe(columns.text(layout.quality or "", row), "quality", _quality_words(columns))),
+        (BAD_TIMESTAMP, ts_bad, describe.timestamp),
+        (MISSING_TAG, tag_missing, describe.missing_tag),
+        (BAD_VALUE, value_bad, describe.value_of(layout.value)),
+        (MISSING_VALUE, value_missing, describe.missing_value),
+        (BAD_QUALITY_CODE, quality == INVALID, describe.quality_of(layout.quality)),
     ]
     drop = blank.copy()
-    for reason, mask, describe in checks:
+    for reason, mask, wording in checks:
         if mask is None or not mask.any():
             continue
         hit = np.flatnonzero(mask & ~drop)
-        report.skip(reason, lines[hit], lambda i, hit=hit, describe=describe: describe(int(hit[i])))
+        report.skip(reason, hit, lines[hit], wording)
         drop |= mask
     report.end_piece(rows - int(blank.sum()))
     if not drop.any():
@@ -415,8 +432,8 @@ def _long_piece(columns: _Columns, report: _Report, first_line: int, row_lines: 
     keep = ~drop
     kept_codes, kept_names = _compact(codes[keep], names)
     kept_lines = lines[keep]
-    return _Piece(kept_names, kept_codes, ts[keep], values[keep], quality[keep],
-                  int(kept_lines[0]) if kept_lines.size else first_line, kept_lines)
+    kept_first = int(kept_lines[0]) if kept_lines.size else first_line
+    return _Piece(kept_names, kept_codes, ts[keep], values[keep], quality[keep], kept_first, kept_lines)
 
 
 def _wide_piece(columns: _Columns, report: _Report, first_line: int, row_lines: np.ndarray | None) -> _Piece:
@@ -438,44 +455,67 @@ def _wide_piece(columns: _Columns, report: _Report, first_line: int, row_lines: 
     lines = row_lines if row_lines is not None else first_line + np.arange(rows, dtype=np.int64)
     row_empty = absent.all(axis=1) & ~unparsable.any(axis=1)
     blank = ts_bad & row_empty & _empty_mask(columns.array(layout.timestamp))
-    time_words = _TIME_WORDS.get(columns.time_kind, "a time")
+    describe = _Wording(columns)
     bad_rows = np.flatnonzero(ts_bad & ~blank)
-    report.skip(BAD_TIMESTAMP, lines[bad_rows],
-                lambda i: _describe(columns.text(layout.timestamp, int(bad_rows[i])), "timestamp", time_words))
-    live = ~(ts_bad | blank)
-    flat_unparsable = (unparsable & live[:, None]).ravel()
-    flat_bad_quality = ((quality == INVALID) & ~absent & ~unparsable & live[:, None]).ravel()
-    for reason, mask, describe in (
-        (BAD_VALUE, flat_unparsable,
-         lambda cell: f"value {columns.text(layout.tags[cell % tag_count], cell // tag_count)!r} "
-         f"in column {layout.tags[cell % tag_count]!r} is not a number"),
-        (BAD_QUALITY_CODE, flat_bad_quality,
-         lambda cell: _describe(columns.text(layout.tag_qualities[cell % tag_count] or "", cell // tag_count),
-                                "quality", _quality_words(columns))
-         + f" in column {layout.tag_qualities[cell % tag_count]!r}"),
-    ):
-        cells = np.flatnonzero(mask)
-        report.skip(reason, lines[cells // tag_count],
-                    lambda i, cells=cells, describe=describe: describe(int(cells[i])))
+    report.skip(BAD_TIMESTAMP, bad_rows, lines[bad_rows], describe.timestamp)
+    # Cells are numbered row-major (row * tag_count + column), the order samples are handed out in.
+    live = ~(ts_bad | blank)[:, None]
+    bad_cells = np.flatnonzero(unparsable & live)
+    report.skip(BAD_VALUE, bad_cells, lines[bad_cells // tag_count], describe.wide_value)
+    bad_quality = (quality == INVALID) & ~absent & ~unparsable & live
+    bad_quality_cells = np.flatnonzero(bad_quality)
+    report.skip(BAD_QUALITY_CODE, bad_quality_cells, lines[bad_quality_cells // tag_count], describe.wide_quality)
     report.end_piece(rows - int(blank.sum()))
-    keep = (~absent & ~unparsable & live[:, None]).ravel() & ~flat_bad_quality
-    cells = np.flatnonzero(keep)
+    cells = np.flatnonzero(~absent & ~unparsable & live & ~bad_quality)
     sample_rows = cells // tag_count
     codes, names = _compact((cells % tag_count).astype(np.int32), list(layout.tags))
     sample_lines = lines[sample_rows]
-    return _Piece(names, codes, ts[sample_rows], values.ravel()[cells], quality.ravel()[cells],
-                  int(sample_lines[0]) if sample_lines.size else first_line, sample_lines)
+    sample_first = int(sample_lines[0]) if sample_lines.size else first_line
+    return _Piece(
+        names, codes, ts[sample_rows], values.ravel()[cells], quality.ravel()[cells], sample_first, sample_lines
+    )
+
+
+class _Wording:
+    """What to say about a skipped row or cell, looked up only for the few that are reported."""
+
+    def __init__(self, columns: _Columns) -> None:
+        self.columns = columns
+        self.layout = columns.layout
+        self.time_words = _TIME_WORDS.get(columns.time_kind, "a time")
+        encoding = columns.quality_encoding
+        self.quality_words = "a quality word or boolean" if encoding == "auto" else f"an {encoding} quality code"
+
+    def timestamp(self, row: int) -> str:
+        return _describe(self.columns.text(self.layout.timestamp, row), "timestamp", self.time_words)
+
+    def missing_tag(self, row: int) -> str:
+        return "empty tag"
+
+    def missing_value(self, row: int) -> str:
+        return "empty value"
+
+    def value_of(self, name: str) -> Callable[[int], str]:
+        return lambda row: f"value {self.columns.text(name, row)[:60]!r} is not a number"
+
+    def quality_of(self, name: str | None) -> Callable[[int], str]:
+        return lambda row: _describe(self.columns.text(name or "", row), "quality", self.quality_words)
+
+    def wide_value(self, cell: int) -> str:
+        row, column = divmod(cell, len(self.layout.tags))
+        name = self.layout.tags[column]
+        return f"{self.value_of(name)(row)} (column {name!r})"
+
+    def wide_quality(self, cell: int) -> str:
+        row, column = divmod(cell, len(self.layout.tags))
+        name = self.layout.tag_qualities[column]
+        return f"{self.quality_of(name)(row)} (column {name!r})"
 
 
 def _describe(text: str, what: str, expected: str) -> str:
     if text == "":
         return f"empty {what}"
     return f"{what} {text[:60]!r} is not {expected}"
-
-
-def _quality_words(columns: _Columns) -> str:
-    encoding = columns.quality_encoding
-    return "a quality word or boolean" if encoding == "auto" else f"an {encoding} quality code"
 
 
 def _compact(codes: np.ndarray, names: list[str]) -> tuple[np.ndarray, list[str]]:
@@ -497,8 +537,9 @@ def _chunks_of(piece: _Piece, source: str, chunk_rows: int) -> Iterator[RawChunk
         if stop - start < rows:
             codes, names = _compact(codes, names)
         first_line = piece.first_line + start if piece.lines is None else int(piece.lines[start])
-        yield RawChunk(names, codes, piece.ts[start:stop], piece.value[start:stop], piece.quality[start:stop],
-                       source, first_line)
+        yield RawChunk(
+            names, codes, piece.ts[start:stop], piece.value[start:stop], piece.quality[start:stop], source, first_line
+        )
 
 
 # ---------------------------------------------------------------------------------------------------
@@ -518,7 +559,7 @@ class _CsvFile:
         self.settings = settings
         head, whole = self._head()
         if head.startswith(_BYTE_ORDER_MARK):
-            head = head[len(_BYTE_ORDER_MARK):]
+            head = head[len(_BYTE_ORDER_MARK) :]
         header_end = head.find(b"\n")
         if not head.strip():
             raise InputError(f"{self.where}: the file is empty; expected a header line")
@@ -527,14 +568,14 @@ class _CsvFile:
         header_line = head if header_end == -1 else head[: header_end + 1]
         self.header = self._parse_header(header_line)
         self.layout = _layout_of(self.header, settings, self.where)
-        body = head[len(header_line):]
+        body = head[len(header_line) :]
         if not whole:
             body = body[: body.rfind(b"\n") + 1]
         sample = self._read_text(pa.py_buffer(body), use_threads=False)[0] if body.strip() else None
-        sample_times = sample.column(self.layout.timestamp) if sample is not None else pa.array([], pa.string())
-        self.time_kind = timestamps.detect_kind(sample_times.combine_chunks(), settings.timestamp_format, self.where)
+        times = sample.column(self.layout.timestamp).combine_chunks() if sample else pa.array([], pa.string())
+        self.time_kind = timestamps.detect_kind(times, settings.timestamp_format, self.where)
         self.epoch_checked = settings.timestamp_format == "auto"
-        ns, bad = timestamps.parse_kind(sample_times.combine_chunks(), self.time_kind, checked_range=self.epoch_checked)
+        ns, bad = timestamps.parse_kind(times, self.time_kind, checked_range=self.epoch_checked)
         self.first_ts: int | None = int(ns[~bad][0]) if (~bad).any() else None
         if sample is not None:
             for name in (self.layout.quality, *self.layout.tag_qualities):
@@ -578,10 +619,12 @@ class _CsvFile:
 
         table = pa_csv.read_csv(
             pa.BufferReader(buffer),
-            read_options=pa_csv.ReadOptions(column_names=self.header, use_threads=use_threads,
-                                             block_size=PARSER_BLOCK_BYTES),
-            parse_options=pa_csv.ParseOptions(ignore_empty_lines=False, newlines_in_values=True,
-                                              invalid_row_handler=set_aside),
+            read_options=pa_csv.ReadOptions(
+                column_names=self.header, use_threads=use_threads, block_size=PARSER_BLOCK_BYTES
+            ),
+            parse_options=pa_csv.ParseOptions(
+                ignore_empty_lines=False, newlines_in_values=True, invalid_row_handler=set_aside
+            ),
             convert_options=pa_csv.ConvertOptions(
                 include_columns=self.layout.columns,
                 column_types={name: pa.string() for name in self.layout.columns},
@@ -605,8 +648,9 @@ class _CsvFile:
         )
 
     def _columns(self, table: pa.Table) -> _Columns:
-        return _Columns(table, self.layout, self.time_kind, self.epoch_checked, self.settings.quality_encoding,
-                        self.where)
+        return _Columns(
+            table, self.layout, self.time_kind, self.epoch_checked, self.settings.quality_encoding, self.where
+        )
 
     def pieces(self, report: _Report) -> Iterator[_Piece]:
         build = _long_piece if self.layout.shape == "long" else _wide_piece
@@ -626,8 +670,15 @@ class _CsvFile:
             yield self._text_piece(text, buffer, quoted, line, report, build)
             line += _count_lines(text)
 
-    def _text_piece(self, text: Any, buffer: pa.Buffer, quoted: bool, first_line: int, report: _Report,
-                    build: Callable[[_Columns, _Report, int, np.ndarray | None], _Piece]) -> _Piece:
+    def _text_piece(
+        self,
+        text: Any,
+        buffer: pa.Buffer,
+        quoted: bool,
+        first_line: int,
+        report: _Report,
+        build: Callable[[_Columns, _Report, int, np.ndarray | None], _Piece],
+    ) -> _Piece:
         try:
             table, malformed = self._read_text(buffer, use_threads=True)
             if malformed and malformed[0].number is None:  # row numbers are only known single-threaded
@@ -637,9 +688,12 @@ class _CsvFile:
         record_lines = _record_first_lines(text, first_line, table.num_rows + len(malformed), quoted)
         if malformed:
             positions = np.array([row.number - 1 for row in malformed], dtype=np.int64)
-            report.skip(MALFORMED_ROW, record_lines[positions],
-                        lambda i: f"expected {malformed[i].expected_columns} fields, "
-                        f"found {malformed[i].actual_columns}")
+            report.skip(
+                MALFORMED_ROW,
+                np.arange(len(malformed)),
+                record_lines[positions],
+                lambda i: f"expected {malformed[i].expected_columns} fields, found {malformed[i].actual_columns}",
+            )
             report.problems.rows_read += len(malformed)
             record_lines = np.delete(record_lines, positions)
         return build(self._columns(table), report, first_line, record_lines)
@@ -729,7 +783,9 @@ class _ParquetFile:
             schema = pq.read_schema(path)
             self.layout = _layout_of(list(schema.names), settings, self.where)
             dictionary_columns = [
-                name for name in (self.layout.tag, self.layout.quality) if name
+                name
+                for name in (self.layout.tag, self.layout.quality)
+                if name
                 and (pa.types.is_string(schema.field(name).type) or pa.types.is_large_string(schema.field(name).type))
             ]
             self.file = pq.ParquetFile(path, read_dictionary=dictionary_columns)
@@ -754,11 +810,13 @@ class _ParquetFile:
         if pa.types.is_integer(kind) or pa.types.is_floating(kind) or pa.types.is_decimal(kind):
             chosen = self.settings.timestamp_format
             if chosen == "iso":
-                raise InputError(f"{self.where}: column {self.layout.timestamp!r} holds numbers, not ISO 8601 text; "
-                                 "set input.timestamp_format to epoch_s or epoch_ms")
+                raise InputError(
+                    f"{self.where}: column {self.layout.timestamp!r} holds numbers, not ISO 8601 text; "
+                    "set input.timestamp_format to epoch_s or epoch_ms"
+                )
             if chosen == "auto":
-                magnitudes = np.abs(pc.fill_null(times.cast(pa.float64()), 0.0).to_numpy(zero_copy_only=False))
-                return timestamps.epoch_unit_for(float(magnitudes.max()) if magnitudes.size else 0.0, self.where)
+                numbers = pc.fill_null(times.cast(pa.float64()), np.nan).to_numpy(zero_copy_only=False)
+                return timestamps.epoch_unit_of(np.asarray(numbers), self.where)
             return chosen
         return timestamps.detect_kind(times, self.settings.timestamp_format, self.where)
 
@@ -771,8 +829,9 @@ class _ParquetFile:
         try:
             for batch in self.file.iter_batches(batch_size=PARQUET_BATCH_ROWS, columns=self.layout.columns):
                 table = pa.Table.from_batches([batch])
-                columns = _Columns(table, self.layout, self.time_kind, self.epoch_checked,
-                                   self.settings.quality_encoding, self.where)
+                columns = _Columns(
+                    table, self.layout, self.time_kind, self.epoch_checked, self.settings.quality_encoding, self.where
+                )
                 yield build(columns, report, row, None)
                 row += batch.num_rows
         except (OSError, pa.ArrowException) as error:

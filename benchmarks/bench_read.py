@@ -107,13 +107,21 @@ def main() -> None:
     parquet_path = csv_path.with_suffix(".parquet")
     if not (csv_path.exists() and parquet_path.exists()):
         generate(rows, options.tags, csv_path, parquet_path)
-    print(f"{rows:,} rows x {options.tags} tags, {csv_path.stat().st_size / 1e6:.0f} MB CSV, {runs} runs, "
-          f"{pa.cpu_count()} pyarrow threads")
-    csv_results = race(runs, {"pyarrow.csv.read_csv": lambda: pyarrow_csv(csv_path),
-                              "read_historian (CSV)": lambda: reader(csv_path)})
+    print(
+        f"{rows:,} rows x {options.tags} tags, {csv_path.stat().st_size / 1e6:.0f} MB CSV, {runs} runs, "
+        f"{pa.cpu_count()} pyarrow threads"
+    )
+    csv_results = race(
+        runs, {"pyarrow.csv.read_csv": lambda: pyarrow_csv(csv_path), "read_historian (CSV)": lambda: reader(csv_path)}
+    )
     report("CSV", csv_results, "pyarrow.csv.read_csv", "read_historian (CSV)")
-    parquet_results = race(runs, {"pyarrow.parquet.read_table": lambda: pyarrow_parquet(parquet_path),
-                                  "read_historian (Parquet)": lambda: reader(parquet_path)})
+    parquet_results = race(
+        runs,
+        {
+            "pyarrow.parquet.read_table": lambda: pyarrow_parquet(parquet_path),
+            "read_historian (Parquet)": lambda: reader(parquet_path),
+        },
+    )
     report("Parquet", parquet_results, "pyarrow.parquet.read_table", "read_historian (Parquet)")
 
 

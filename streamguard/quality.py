@@ -71,8 +71,8 @@ def decode_quality(values: Any, encoding: str, where: str) -> np.ndarray:
             table = _decode_dictionary_text(dictionary, encoding, where)
         else:
             table = decode_quality(dictionary, encoding, where)
-        indices = array.indices
-        positions = np.asarray(pc.fill_null(indices, 0).to_numpy(zero_copy_only=False), dtype=np.int64)
+        indices = pc.fill_null(array.indices, 0) if array.null_count else array.indices
+        positions = np.asarray(indices.to_numpy(zero_copy_only=False))
         decoded = table[positions] if len(table) else np.full(len(array), INVALID, dtype=np.uint8)
         if array.null_count:
             decoded[array.is_null().to_numpy(zero_copy_only=False)] = INVALID

@@ -303,6 +303,8 @@ class _Columns:
     epoch_checked: bool
     quality_encoding: str
     where: str
+    # CSV dictionaries hold only values seen in the piece; a Parquet batch's may be its row group's.
+    dictionary_exact: bool = True
 
     def array(self, name: str) -> pa.Array:
         column = self.table.column(name)
@@ -343,10 +345,8 @@ def _numbers_of(columns: _Columns, name: str) -> tuple[np.ndarray, np.ndarray, n
         or pa.types.is_boolean(kind)
     ):
         raise InputError(f"{columns.where}: column {name!r} holds {array.type}, not numbers")
-    numbers = array.cast(pa.float64())
-    missing = _null_mask(numbers)
-    values = np.asarray(pc.fill_null(numbers, np.nan).to_numpy(zero_copy_only=False), dtype=np.float64)
-    return values, missing, None
+    numbers = array if pa.types.is_float64(array.type) else array.cast(pa.float64())
+    return _filled_numpy(numbers, np.nan), _null_mask(numbers), None
 
 
 def _qualities_of(columns: _Columns, name: str | None, rows: int) -> np.ndarray:
@@ -363,8 +363,9 @@ def _tags_of(columns: _Columns) -> tuple[list[str], np.ndarray, np.ndarray]:
             array = array.cast(pa.string())
         array = pc.dictionary_encode(array)
     names = [str(name) if name is not None else "" for name in array.dictionary.to_pylist()]
-    codes = np.asarray(pc.fill_null(array.indices, -1).to_numpy(zero_copy_only=False), dtype=np.int32)
-    missing = codes < 0
+    indices = array.indices if pa.types.is_int32(array.indices.type) else array.indices.cast(pa.int32())
+    codes = _filled_numpy(indices, -1)
+    missing = _null_mask(array)
     for index, name in enumerate(names):
         if name == "":
             missing |= codes == index
@@ -375,6 +376,13 @@ def _null_mask(array: pa.Array) -> np.ndarray:
     if array.null_count == 0:
         return np.zeros(len(array), dtype=bool)
     return np.asarray(array.is_null().to_numpy(zero_copy_only=False), dtype=bool)
+
+
+def _filled_numpy(array: pa.Array, fill: float) -> np.ndarray:
+    """The array as numpy with nulls set to ``fill``; a view, not a copy, when there are no nulls."""
+    if array.null_count:
+        array = pc.fill_null(array, pa.scalar(fill, array.type))
+    return np.asarray(array.to_numpy(zero_copy_only=False))
 
 
 def _empty_mask(array: pa.Array) -> np.ndarray:
@@ -407,7 +415,6 @@ def _long_piece(columns: _Columns, report: _Report, first_line: int, row_lines: 
     names, codes, tag_missing = _tags_of(columns)
     values, value_missing, value_bad = _numbers_of(columns, layout.value)
     quality = _qualities_of(columns, layout.quality, rows)
-    lines = row_lines if row_lines is not None else first_line + np.arange(rows, dtype=np.int64)
     blank = _blank_rows(columns) if ts_bad.any() else np.zeros(rows, dtype=bool)
     describe = _Wording(columns)
     # A row with several faults is counted once, under the first reason in this order.
@@ -423,13 +430,15 @@ def _long_piece(columns: _Columns, report: _Report, first_line: int, row_lines: 
         if mask is None or not mask.any():
             continue
         hit = np.flatnonzero(mask & ~drop)
-        report.skip(reason, hit, lines[hit], wording)
+        report.skip(reason, hit, hit + first_line if row_lines is None else row_lines[hit], wording)
         drop |= mask
     report.end_piece(rows - int(blank.sum()))
     if not drop.any():
-        codes, names = _compact(codes, names)  # a Parquet batch's dictionary may be its row group's
+        if not columns.dictionary_exact:
+            codes, names = _compact(codes, names)
         return _Piece(names, codes, ts, values, quality, first_line, row_lines)
     keep = ~drop
+    lines = row_lines if row_lines is not None else first_line + np.arange(rows, dtype=np.int64)
     kept_codes, kept_names = _compact(codes[keep], names)
     kept_lines = lines[keep]
     kept_first = int(kept_lines[0]) if kept_lines.size else first_line
@@ -830,7 +839,13 @@ class _ParquetFile:
             for batch in self.file.iter_batches(batch_size=PARQUET_BATCH_ROWS, columns=self.layout.columns):
                 table = pa.Table.from_batches([batch])
                 columns = _Columns(
-                    table, self.layout, self.time_kind, self.epoch_checked, self.settings.quality_encoding, self.where
+                    table,
+                    self.layout,
+                    self.time_kind,
+                    self.epoch_checked,
+                    self.settings.quality_encoding,
+                    self.where,
+                    dictionary_exact=False,
                 )
                 yield build(columns, report, row, None)
                 row += batch.num_rows

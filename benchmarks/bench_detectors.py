@@ -57,7 +57,7 @@ def time_detector_stage(n_tags: int, per_tag: int, runs: int) -> list[float]:
         points = form_points(batch.tag, batch.ts, batch.value, reason, restart, pipeline.tags.subgroup,
                              pipeline.subgroup_state, True)  # fmt: skip
         start = time.perf_counter()
-        z = pipeline.standardize(points)
+        z, _ = pipeline.standardize(points)
         for name in pipeline.detectors:
             pipeline.run_detector(name, points, z)
         rates.append(len(batch) / (time.perf_counter() - start))

@@ -155,6 +155,7 @@ class TagSettings(_Strict):
     uncertain: Literal["exclude", "use"] | None = None
     units: str | None = None
     subgroup: Subgroup | None = None
+    model: Literal["none", "ar1"] | None = None
 
     @field_validator("max_gap")
     @classmethod
@@ -203,7 +204,7 @@ class ResolvedTag:
     """One tag's settings after merging defaults, matching patterns and the exact entry."""
 
     __slots__ = ("name", "baseline", "detectors", "range", "stale_after", "max_gap_ns", "use_uncertain",
-                 "units", "subgroup", "sources")  # fmt: skip
+                 "units", "subgroup", "sources", "model")  # fmt: skip
 
     def __init__(self, name: str, config: Config, merged: dict[str, Any], sources: list[str]) -> None:
         self.name = name
@@ -216,6 +217,7 @@ class ResolvedTag:
         self.use_uncertain: bool = merged.get("uncertain") == "use"
         self.units: str | None = merged.get("units")
         self.subgroup: Subgroup = merged.get("subgroup") or config.subgroup
+        self.model: str = merged.get("model") or "none"
         overrides: dict[str, dict[str, Any]] = merged.get("detectors") or {}
         self.detectors: dict[str, Any] = {}
         for det_name, params in config.detectors.enabled().items():

@@ -51,6 +51,9 @@ class TagLimits(_Model):
     autocorrelation: list[float] = Field(default_factory=list, description="lags 1..k of the charted points")
     effective_points: float | None = None
     sample_period_s: float | None = Field(None, description="median spacing of the tag's samples")
+    model: Literal["none", "ar1"] = "none"
+    ar1_phi: float | None = Field(None, description="frozen AR(1) coefficient of the charted points")
+    residual_sigma: float | None = Field(None, description="sigma of the AR(1) one-step residuals")
     warnings: list[str] = Field(default_factory=list)
 
 

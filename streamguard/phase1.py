@@ -68,6 +68,21 @@ def autocorrelation(x: np.ndarray, lags: int = ACF_LAGS) -> list[float]:
     return [float(d[:-k] @ d[k:] / denominator) for k in range(1, lags + 1)]
 
 
+def autocorrelation_remedy(acf: list[float], threshold: float = 0.2) -> str:
+    """Two remedies with numbers: a subgroup long enough that consecutive means are nearly independent
+    (the AR(1) block-mean correlation of ``comparison.autocorrelation``), or charting AR(1) residuals."""
+    from .comparison.autocorrelation import block_mean_correlation, choose_block_length
+
+    phi = acf[0] if acf else 0.0
+    if not 0 < phi < 1:
+        return "none needed"
+    m = choose_block_length(phi, threshold)
+    return (f"(a) subgroups of about {m} consecutive points (means then correlate at about "
+            f"{block_mean_correlation(m, phi):.2f}; "
+            f"limits on subgroup means are standard errors, not the spread of the product), or "
+            f"(b) `model: ar1` for this tag: chart one-step residuals with phi = {phi:.2f} frozen in the limits file")
+
+
 def effective_points(n: int, r1: float) -> float:
     """AR(1) approximation n (1 - r1) / (1 + r1): how many independent points the data is worth."""
     r = min(max(r1, -0.99), 0.99)
@@ -95,9 +110,50 @@ def _estimate(mean: np.ndarray, sd: np.ndarray, n: np.ndarray, restart: np.ndarr
     return centre, float(ratios.mean()), "s_bar_c4"
 
 
+def estimate_ar1(name: str, mean: np.ndarray, restart: np.ndarray) -> tuple[TagLimits | None, str]:
+    """AR(1) model of the charted points: centre, phi = lag-1 ACF, and the sigma of one-step residuals
+    r_t = (x_t - mu) - phi (x_(t-1) - mu), which are nearly independent, so limits on them alarm at the
+    designed rate (the residual chart of Alwan & Roberts 1988; Montgomery, Introduction to SQC, ch. 10).
+    sigma is the total standard deviation of the points: the process spread. No trimming: on
+    autocorrelated data a 3-sigma screen removes the process's own excursions."""
+    if mean.shape[0] < MIN_INDIVIDUALS:
+        return None, (f"{name}: only {mean.shape[0]} points in the baseline window; "
+                      f"need at least {MIN_INDIVIDUALS} (common practice)")
+    centre = float(mean.mean())
+    sigma = float(mean.std(ddof=1))
+    if not sigma > 0:
+        return None, f"{name}: sigma is zero in the baseline window (flat or stuck signal); choose another window"
+    acf = autocorrelation(mean)
+    phi = acf[0] if acf else 0.0
+    d = mean - centre
+    residuals = d[1:] - phi * d[:-1]
+    pairs = ~restart[1:]
+    ranges = np.abs(np.diff(residuals[pairs]))
+    residual_sigma = float(ranges.mean() / _D2_2) if ranges.size else 0.0
+    if not residual_sigma > 0:
+        return None, f"{name}: the AR(1) residuals have no spread; choose another window"
+    residual_acf = autocorrelation(residuals[pairs])
+    warnings = []
+    if residual_acf and abs(residual_acf[0]) > 0.2:
+        warnings.append(
+            f"AR(1) residuals still correlated at lag 1 ({residual_acf[0]:.2f}): AR(1) fits this tag poorly"
+        )
+    limits = TagLimits(
+        mean=centre, sigma=sigma, subgroup_size=1.0, estimator="ar1_residual_moving_range",
+        points_used=int(mean.shape[0]), lag1_autocorrelation=phi, autocorrelation=acf,
+        effective_points=effective_points(int(mean.shape[0]), phi), warnings=warnings,
+        model="ar1", ar1_phi=phi, residual_sigma=residual_sigma,
+        passes=[EstimationPass(number=1, mean=centre, sigma=sigma, points_used=int(mean.shape[0]),
+                               points_dropped=0)],
+    )  # fmt: skip
+    return limits, ""
+
+
 def estimate_tag(name: str, mean: np.ndarray, sd: np.ndarray, n: np.ndarray, restart: np.ndarray,
-                 robust: bool = False) -> tuple[TagLimits | None, str]:  # fmt: skip
+                 robust: bool = False, model: str = "none") -> tuple[TagLimits | None, str]:  # fmt: skip
     """Iterated estimate for one tag; returns (limits, "") or (None, reason refused)."""
+    if model == "ar1":
+        return estimate_ar1(name, mean, restart)
     individuals = bool(np.all(n == 1))
     minimum = MIN_INDIVIDUALS if individuals else MIN_SUBGROUPS
     what = "individual points" if individuals else "subgroups"
@@ -137,7 +193,7 @@ def estimate_tag(name: str, mean: np.ndarray, sd: np.ndarray, n: np.ndarray, res
     if r1 is not None and r1 > AUTOCORRELATION_WARNING:
         warnings.append(
             f"lag-1 autocorrelation {r1:.2f} > {AUTOCORRELATION_WARNING}: limits on such data alarm far more often "
-            "than designed; consider a subgroup window long enough for nearly independent means"
+            f"than designed. Remedies: {autocorrelation_remedy(acf)}"
         )
     if untrimmed_share:
         warnings.append(
@@ -256,7 +312,7 @@ def run_baseline(config: Config, paths: Sequence[str | Path], *, robust: bool = 
             continue
         c = found
         limits, why = estimate_tag(name, np.concatenate(c.mean), np.concatenate(c.sd), np.concatenate(c.n),
-                                   np.concatenate(c.restart), robust)  # fmt: skip
+                                   np.concatenate(c.restart), robust, table.settings[t].model)  # fmt: skip
         if limits is None:
             refused[name] = why
             continue

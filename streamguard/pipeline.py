@@ -52,6 +52,12 @@ class Counters(Columns):
     }
 
 
+class ModelState(Columns):
+    """The previous charted point per tag, for AR(1) residuals."""
+
+    spec = {"previous": (np.float64, (), np.nan)}
+
+
 class Pipeline:
     """Stages wired in one direction; all state lives in per-tag arrays."""
 
@@ -64,13 +70,14 @@ class Pipeline:
         self.detector_state: dict[str, Columns] = {name: _STATE_TYPES[name]() for name in self.detectors}
         self.alarm_state: dict[str, AlarmState] = {name: AlarmState() for name in self.detectors}
         self.counters = Counters()
+        self.model_state = ModelState()
         self.clear_after = config.alarms.clear_after
         self.fingerprint = config_fingerprint(config)
 
     # -- state ---------------------------------------------------------------------------------
     def _all_state(self) -> dict[str, Columns]:
         columns: dict[str, Columns] = {"gate": self.gate_state, "subgroup": self.subgroup_state,
-                                       "counters": self.counters}  # fmt: skip
+                                       "model": self.model_state, "counters": self.counters}  # fmt: skip
         for name in self.detectors:
             columns[f"detector.{name}"] = self.detector_state[name]
             columns[f"alarm.{name}"] = self.alarm_state[name]
@@ -165,12 +172,19 @@ class Pipeline:
             units=self.tags.settings[t].units,
         )  # fmt: skip
 
-    def standardize(self, points: Points) -> np.ndarray:
-        """z = (mean - mu0) / (sigma0 / sqrt(n)): every detector charts standard errors of the point."""
-        centres = self.tags.centres
-        return standardize_kernel(points.tag, points.mean, points.n, centres.mean, centres.sigma)
+    def standardize(self, points: Points) -> tuple[np.ndarray, np.ndarray]:
+        """z = (mean - mu0) / (sigma0 / sqrt(n)): every detector charts standard errors of the point.
 
-    def run_detector(self, name: str, points: Points, z: np.ndarray, trace: bool = False) -> DetectorOutput:
+        For ``model: ar1`` tags the charted quantity is the one-step residual
+        r = (x - mu0) - phi (x_prev - mu0), divided by the residual sigma: nearly independent points, so the
+        detectors' designed run lengths hold again. Returns z and the charted values (engineering units).
+        """
+        centres = self.tags.centres
+        return standardize_kernel(points.tag, points.mean, points.n, points.restart, centres.mean, centres.sigma,
+                                  centres.phi, centres.chart_sigma, self.model_state.previous)  # fmt: skip
+
+    def run_detector(self, name: str, points: Points, z: np.ndarray, charted: np.ndarray | None = None,
+                     trace: bool = False) -> DetectorOutput:  # fmt: skip
         """One detector over the batch's points, its alarm state advanced in the same pass."""
         params = self.tags.detector_params[name]
         state = self.detector_state[name]
@@ -182,15 +196,16 @@ class Pipeline:
             return run_cusum(points.tag, z, points.restart, params, state, *common)  # type: ignore[arg-type]
         if name == "ewma":
             return run_ewma(points.tag, z, points.restart, params, state, *common)  # type: ignore[arg-type]
-        return run_spread(points.tag, points.mean, points.sd, points.n, self.tags.centres.sigma,
+        values = points.mean if charted is None else charted
+        return run_spread(points.tag, values, points.sd, points.n, self.tags.centres.chart_sigma,
                           points.restart, params, state, *common)  # type: ignore[arg-type]  # fmt: skip
 
     def _detect(self, points: Points) -> list[Event]:
-        z = self.standardize(points)
+        z, charted = self.standardize(points)
         events: list[Event] = []
         counters = self.counters
         for name in self.detectors:
-            out = self.run_detector(name, points, z)
+            out = self.run_detector(name, points, z, charted)
             detector_index = DETECTOR_NAMES.index(name)
             for j in range(out.point.shape[0]):
                 i = int(out.point[j])
@@ -225,9 +240,22 @@ class Pipeline:
 
 
 @njit(cache=True)
-def standardize_kernel(tag, mean, n, mu, sigma):
+def standardize_kernel(tag, mean, n, restart, mu, sigma, phi, chart_sigma, previous):
     z = np.empty(tag.shape[0])
+    charted = np.empty(tag.shape[0])
     for i in range(tag.shape[0]):
         t = tag[i]
-        z[i] = (mean[i] - mu[t]) / (sigma[t] / np.sqrt(n[i])) if n[i] != 1 else (mean[i] - mu[t]) / sigma[t]
-    return z
+        x = mean[i]
+        if phi[t] != 0.0:
+            if restart[i] or np.isnan(previous[t]):
+                z[i] = (x - mu[t]) / sigma[t]  # no predecessor: the unconditional spread
+                charted[i] = x
+            else:
+                r = (x - mu[t]) - phi[t] * (previous[t] - mu[t])
+                z[i] = r / chart_sigma[t]
+                charted[i] = mu[t] + r
+            previous[t] = x
+        else:
+            z[i] = (x - mu[t]) / (sigma[t] / np.sqrt(n[i])) if n[i] != 1 else (x - mu[t]) / sigma[t]
+            charted[i] = x
+    return z, charted

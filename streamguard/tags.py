@@ -23,9 +23,14 @@ from .subgroup import SubgroupParams
 
 
 class Centres(Columns):
+    """Frozen phase-I numbers per tag. ``chart_sigma`` is what the detectors divide by: the individual
+    sigma, or for ``model: ar1`` the sigma of the one-step residuals."""
+
     spec = {
         "mean": (np.float64, (), 0.0),
         "sigma": (np.float64, (), 1.0),
+        "phi": (np.float64, (), 0.0),
+        "chart_sigma": (np.float64, (), 1.0),
     }
 
 
@@ -55,6 +60,7 @@ class TagTable:
         self.all_individuals = True
         self._given: dict[str, tuple[float, float]] = {}
         self._version: str | None = None
+        self.skip_reason: dict[str, str] = {}
 
     def __len__(self) -> int:
         return len(self.names)
@@ -93,12 +99,24 @@ class TagTable:
 
     def _fill(self, i: int, s: ResolvedTag) -> None:
         mean, sigma, source = self._baseline(s)
+        phi, residual_sigma = 0.0, sigma
+        if s.model == "ar1":
+            found = self.limits.tags.get(s.name) if self.limits else None
+            if source == "limits file" and found is not None and found.model == "ar1" and found.residual_sigma:
+                phi, residual_sigma = float(found.ar1_phi or 0.0), float(found.residual_sigma)
+            else:
+                # Charting an autocorrelated tag as if independent is the failure ar1 exists to avoid:
+                # skip the tag rather than fall back silently.
+                source = ""
+                self.skip_reason[s.name] = "model: ar1 needs limits estimated with model: ar1 (re-run baseline)"
         self.limit_source.append(source)
         if source == "config":
             self._given[s.name] = (mean, sigma)
             self._version = None
         self.centres.mean[i] = mean
         self.centres.sigma[i] = sigma
+        self.centres.phi[i] = phi
+        self.centres.chart_sigma[i] = residual_sigma
         gate = self.gate
         gate.active[i] = bool(source)
         gate.range_low[i], gate.range_high[i] = s.range if s.range else (-np.inf, np.inf)

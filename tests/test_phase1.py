@@ -105,7 +105,8 @@ def test_baseline_end_to_end_writes_provenance(tmp_path) -> None:  # type: ignor
             rows.append((ts, "SHORT-1", float(rng.normal(1, 0.1))))
     path = tmp_path / "data.csv"
     _write(path, rows)
-    config = parse_config({"tags": {"*": {"baseline": {"start": "2026-01-01T00:00:00Z", "end": "2026-01-02T00:00:00Z"}}}})
+    window = {"start": "2026-01-01T00:00:00Z", "end": "2026-01-02T00:00:00Z"}
+    config = parse_config({"tags": {"*": {"baseline": window}}})
     result = run_baseline(config, [path])
     assert set(result.limits.tags) == {"GOOD-1"} and "SHORT-1" in result.refused
     good = result.limits.tags["GOOD-1"]
@@ -116,3 +117,50 @@ def test_baseline_end_to_end_writes_provenance(tmp_path) -> None:  # type: ignor
     again = load_limits(out)
     assert again.limits_version == result.limits.limits_version
     assert again.tags["GOOD-1"].sigma == good.sigma
+
+
+def _ar1(rng: np.random.Generator, n_series: int, length: int, phi: float) -> np.ndarray:
+    x = np.empty((n_series, length))
+    x[:, 0] = rng.normal(0, 1 / math.sqrt(1 - phi**2), n_series)
+    e = rng.normal(0, 1, (n_series, length))
+    for i in range(1, length):
+        x[:, i] = phi * x[:, i - 1] + e[:, i]
+    return x
+
+
+def test_ar1_model_restores_the_designed_false_alarm_rate() -> None:
+    """AR(1) data (phi = 0.8) charted as individuals with MR-bar/d2 limits alarms far more often than the
+    370.4-point ARL of a 3-sigma chart; charting the AR(1) residuals (model: ar1, Alwan & Roberts 1988)
+    brings the run length back to 370.4 (normal theory), within 4 simulation standard errors."""
+    from streamguard.limits import LimitsFile
+    from streamguard.pipeline import Pipeline
+
+    from .helpers import first_raise_points, interleaved
+
+    rng = np.random.default_rng(SEED + 5)
+    baseline = _ar1(rng, 1, 20_000, 0.8)[0]
+    plain, _ = _individuals(baseline)
+    fitted, why = estimate_tag("T", baseline, np.full(baseline.size, np.nan), np.ones(baseline.size, np.int32),
+                               np.zeros(baseline.size, bool), model="ar1")  # fmt: skip
+    assert plain is not None and fitted is not None, why
+    assert fitted.ar1_phi == pytest.approx(0.8, abs=4 * math.sqrt((1 - 0.64) / 20_000))
+    assert fitted.residual_sigma == pytest.approx(1.0, rel=0.03)
+    assert "model: ar1" in plain.warnings[0]
+
+    reps, length = 1500, 3000
+    data = _ar1(rng, reps, length, 0.8)
+    runs = {}
+    for model, limits in (("none", plain), ("ar1", fitted)):
+        names = [f"T{i}" for i in range(reps)]
+        limits_file = LimitsFile(tags={name: limits for name in names})
+        config = parse_config({"detectors": {"shewhart": {"rules": ["we1"]}},
+                               "tags": {"*": {"model": model}}})  # fmt: skip
+        pipeline = Pipeline(config, limits_file)
+        pipeline.tags.lookup(names)
+        events = pipeline.process(interleaved(data))
+        runs[model] = first_raise_points(pipeline, events, length, "shewhart")
+    assert runs["none"].mean() < 370.4 / 3
+    censored = runs["ar1"] > length
+    assert censored.mean() < 0.01
+    rl = runs["ar1"][~censored]
+    assert abs(rl.mean() - 370.4) < 4 * rl.std(ddof=1) / math.sqrt(rl.size) + 370.4 * censored.mean()

@@ -67,7 +67,7 @@ def one_sided_chain(k: float, h: float, mean: float, states: int, start: float =
     centres = np.arange(states) * width
     transient = _one_sided_rows(centres, k, h, mean, states)
     first_step = _one_sided_rows(np.array([start]), k, h, mean, states)[0]
-    return AbsorbingChain(transient, first_step)
+    return AbsorbingChain(transient, first_step, banded=True)
 
 
 def _two_sided_rows(upper: np.ndarray, lower: np.ndarray, k: float, h: float, mean: float,
@@ -149,6 +149,12 @@ def cusum_arl(k: float, h: float, headstart: float, mean: float, side: str = "tw
     base_2d = max(8, math.ceil(h / 0.5))
     result = converge(lambda m: two_sided_chain(k, h, mean, m, start).arl(), base_2d, tolerance, _MAX_SIDE_2D)
     return result, "two-dimensional Markov chain on (upper, lower), Richardson-extrapolated"
+
+
+def quick_cusum_arl(k: float, h: float, mean: float) -> float:
+    """Two-sided zero-start ARL from two grids and one Richardson step, no convergence check (searches)."""
+    base = _coarse_states(h)
+    return extrapolate(_combined_at(k, h, mean, 0.0, base), _combined_at(k, h, mean, 0.0, 2 * base))
 
 
 def siegmund_arl(k: float, h: float, mean: float, side: str = "two") -> float:

@@ -32,8 +32,8 @@ _CELLS_PER_LAMBDA = 4.0
 _MIN_HALF_CELLS = 10
 _MAX_HALF_CELLS = 1600
 LIMIT_KINDS = ("exact", "asymptotic")
-# Up to this many cells a dense LU is as fast as a sparse one.
-_DENSE_CELLS = 161
+# Up to this many cells the dense matrix is cheap to build; larger ones are built as bands directly.
+_DENSE_CELLS = 129
 
 
 @dataclass(frozen=True)
@@ -88,7 +88,7 @@ def asymptotic_chain(lam: float, L: float, mean: float, half_cells: int) -> Abso
     else:
         transient = _banded_rows(grid.centres, grid, lam, mean)
     first_step = np.diff(_edge_probabilities(np.zeros(1), grid.edges, lam, mean), axis=1)[0]
-    return AbsorbingChain(transient, first_step)
+    return AbsorbingChain(transient, first_step, banded=True)
 
 
 def _limit_ratio(lam: float, points: int) -> float:
@@ -145,7 +145,7 @@ class ExactLimitsStart:
         return math.sqrt(max(second - mean * mean, 0.0))
 
     def survival(self, lowest_quantile_mass: float) -> Survival:
-        continued = AbsorbingChain(self.homogeneous.transient, self.after)
+        continued = AbsorbingChain(self.homogeneous.transient, self.after, banded=True)
         rest = continued.survival(lowest_quantile_mass)
         # rest.head[0] is 1 by construction (mass before point T+1); rescale by P(N > T).
         return Survival(np.concatenate([self.head[:-1], rest.head[1:]]), rest.tail_ratio)

@@ -30,7 +30,7 @@ from scipy.stats import norm
 
 from ..durations import format_duration, parse_duration
 from ..errors import UsageError
-from .cusum_arl import cusum_arl, siegmund_arl
+from .cusum_arl import cusum_arl, quick_cusum_arl, siegmund_arl
 from .ewma_arl import ewma_arl, quick_asymptotic_arl
 from .shewhart_arl import ORDER_RULES, RULE_NAMES, canonical_rules, shewhart_arl
 
@@ -170,37 +170,54 @@ def _solve_increasing(function: Callable[[float], float], target: float, guess: 
     return float(optimize.brentq(gap, low, high, xtol=1e-9, rtol=1e-10))
 
 
+def _polish(quick: Callable[[float], float], precise: Callable[[float], float], target: float,
+            x: float) -> float:  # fmt: skip
+    """Newton steps on the converged ARL, with the slope of the cheap one: usually two evaluations."""
+    goal = math.log(target)
+    step = 1e-3 * x
+    slope = (math.log(quick(x + step)) - math.log(quick(x))) / step
+    for _ in range(4):
+        gap = math.log(precise(x)) - goal
+        if abs(gap) <= 2e-5 or slope <= 0:
+            break
+        x -= gap / slope
+    return x
+
+
 def solve_cusum_h(k: float, target_arl: float) -> float:
     """h for which the two-sided zero-state ARL of the CUSUM equals ``target_arl``.
 
-    Siegmund's approximation, solved first, is the starting guess: it is within a few percent.
+    Siegmund's approximation gives the first guess (within a few percent), the two-grid chain the
+    root, and the converged chain the last correction.
     """
     high = 1.0
     while siegmund_arl(k, high, 0.0) < target_arl and high < 400.0:
         high *= 2.0
     approximate = optimize.brentq(lambda h: math.log(siegmund_arl(k, h, 0.0) / target_arl), 1e-3, high)
-    h = _solve_increasing(
-        lambda h: cusum_arl(k, h, 0.0, 0.0, "two", _SOLVE_TOLERANCE)[0].value, target_arl, approximate, 400.0
-    )
+
+    def quick(h: float) -> float:
+        return quick_cusum_arl(k, h, 0.0)
+
+    h = _solve_increasing(quick, target_arl, approximate, 400.0)
     if h is None:
         raise UsageError(f"no CUSUM decision interval reaches an in-control ARL of {target_arl:.4g}")
-    return h
+    return _polish(quick, lambda h: cusum_arl(k, h, 0.0, 0.0, "two", _SOLVE_TOLERANCE)[0].value, target_arl, h)
 
 
 def solve_ewma_L(lam: float, target_arl: float, limits: str = "asymptotic", guess: float | None = None,
                  quick: bool = False) -> float:  # fmt: skip
-    """L for the required in-control ARL; ``quick`` uses the two-grid ARL meant for searches."""
+    """L for the required in-control ARL; ``quick`` stops at the two-grid ARL meant for searches."""
 
-    def in_control(L: float) -> float:
-        if quick and limits == "asymptotic":
-            return quick_asymptotic_arl(lam, L, 0.0)
-        return ewma_arl(lam, L, limits, 0.0, _SOLVE_TOLERANCE)[0].value
+    def cheap(L: float) -> float:
+        return quick_asymptotic_arl(lam, L, 0.0)
 
     start = guess if guess is not None else float(norm.isf(1.0 / (2.0 * target_arl)))
-    L = _solve_increasing(in_control, target_arl, start, 40.0)
+    L = _solve_increasing(cheap, target_arl, start, 40.0)
     if L is None:
         raise UsageError(f"no EWMA limit reaches an in-control ARL of {target_arl:.4g}")
-    return L
+    if quick and limits == "asymptotic":
+        return L
+    return _polish(cheap, lambda L: ewma_arl(lam, L, limits, 0.0, _SOLVE_TOLERANCE)[0].value, target_arl, L)
 
 
 def solve_ewma(target_arl: float, chart_shift: float) -> tuple[float, float]:

@@ -15,6 +15,8 @@ from __future__ import annotations
 
 import mmap
 import os
+import queue
+import threading
 from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -47,6 +49,8 @@ QUALITY_SUFFIX = ".quality"
 PIECE_BYTES = 64 << 20
 PARSER_BLOCK_BYTES = 4 << 20
 PARQUET_BATCH_ROWS = 1 << 20
+# Pieces parsed ahead of the consumer, in a background thread (memory: about two pieces more).
+READ_AHEAD_PIECES = 1
 # The head read at open time: header, timestamp format, quality encoding, first timestamp.
 HEAD_BYTES = 256 << 10
 
@@ -155,10 +159,66 @@ def read_historian(
 def _stream(
     files: list[_CsvFile | _ParquetFile], strict: bool, problems: ReadProblems, chunk_rows: int
 ) -> Iterator[RawChunk]:
-    for file in files:
-        report = _Report(problems, strict, file.place)
-        for piece in file.pieces(report):
-            yield from _chunks_of(piece, file.where, chunk_rows)
+    def pieces() -> Iterator[tuple[_Piece, str]]:
+        for file in files:
+            report = _Report(problems, strict, file.place)
+            for piece in file.pieces(report):
+                yield piece, file.where
+
+    for piece, source in _read_ahead(pieces, READ_AHEAD_PIECES):
+        yield from _chunks_of(piece, source, chunk_rows)
+
+
+@dataclass(frozen=True)
+class _Failure:
+    error: BaseException
+
+
+_FINISHED = object()
+
+
+def _read_ahead(produce: Callable[[], Iterator[Any]], depth: int) -> Iterator[Any]:
+    """Run ``produce`` in a background thread, up to ``depth`` items ahead of the consumer.
+
+    While the caller works on one piece the next is being parsed: pyarrow releases the GIL, so its
+    threads fill the gaps between pieces and the time the caller spends on its own work. Items and the
+    producer's error, if any, arrive in order; closing the iterator stops the producer after its
+    current piece.
+    """
+    handoff: queue.Queue[Any] = queue.Queue(maxsize=depth)
+    stop = threading.Event()
+
+    def offer(item: Any) -> bool:
+        while not stop.is_set():
+            try:
+                handoff.put(item, timeout=0.1)
+                return True
+            except queue.Full:
+                continue
+        return False
+
+    def work() -> None:
+        try:
+            for item in produce():
+                if not offer(item):
+                    return
+            offer(_FINISHED)
+        except BaseException as error:  # noqa: B036 - handed to the consumer and raised there
+            offer(_Failure(error))
+
+    worker = threading.Thread(target=work, name="historian-read-ahead", daemon=True)
+    worker.start()
+    try:
+        while True:
+            item = handoff.get()
+            if item is _FINISHED:
+                return
+            if isinstance(item, _Failure):
+                raise item.error
+            yield item
+    finally:
+        stop.set()
+        worker.join()
 
 
 def _check_settings(settings: InputSettings) -> None:

@@ -55,16 +55,14 @@ def cmd_check(args: argparse.Namespace) -> int:
 
 def _print_design(config: Config, limits: LimitsFile) -> None:
     """Per tag: the designed in-control alarm interval in time, given its sample rate."""
-    try:
-        from .design.interval import designed_intervals
-    except ImportError:
-        return
+    from .expected_rates import designed_intervals
+
     rows = designed_intervals(config, limits)
     if rows:
         print()
-        print(f"{'tag':<16} {'period':>8} {'detector':<9} {'in-control ARL':>15} {'designed false-alarm interval':>30}")
+        print(f"{'tag':<16} {'point every':>11} {'detector':<9} {'in-control ARL':>15}  designed false-alarm interval")
         for row in rows:
-            print(f"{row['tag']:<16} {row['period']:>8} {row['detector']:<9} {row['arl']:>15.4g} {row['interval']:>30}")
+            print(f"{row['tag']:<16} {row['period']:>11} {row['detector']:<9} {row['arl']:>15.4g}  {row['interval']}")
 
 
 def cmd_baseline(args: argparse.Namespace) -> int:
@@ -95,8 +93,13 @@ def cmd_replay(args: argparse.Namespace) -> int:
         from .review import review_replay
 
         review_lines = review_replay(result, config, report_path=args.report, incidents_path=args.incidents)
+    from .expected_rates import compare_with_observed
+
+    flags = compare_with_observed(result.summary, config, limits)
     events_path, summary_path = write_outputs(result, args.out)
     print(format_summary(result.summary))
+    for flag in flags:
+        print(f"far above design: {flag}")
     for line in review_lines:
         print(line)
     print(f"wrote {events_path} and {summary_path}")

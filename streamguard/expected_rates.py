@@ -1,0 +1,121 @@
+"""What each tag's settings promise: the designed in-control alarm interval in time, and whether a replay
+kept that promise.
+
+A run length is counted in charted points, but a plant lives in hours: the same ARL of 370 is a false
+alarm every six minutes on a 1 Hz individuals chart and every six hours on one-minute subgroups. Here the
+run-length engine's in-control ARL is multiplied by the time one point takes (sample period x subgroup
+size, or the window), and a replay's observed raises are set beside it. A tag that raises far more often
+than designed is usually autocorrelated or has a stale baseline.
+"""
+
+from __future__ import annotations
+
+import math
+from functools import lru_cache
+from typing import Any
+
+from scipy import stats
+
+from .config import Config, resolve_tag
+from .durations import format_duration
+from .limits import LimitsFile
+
+_D2_2 = 2.0 / math.sqrt(math.pi)
+_D3_2 = math.sqrt(2.0 - 4.0 / math.pi)
+FLAG_P_VALUE = 1e-3  # observed raises this improbable under the design are flagged
+
+
+def _freeze(params: dict[str, Any]) -> tuple[tuple[str, Any], ...]:
+    return tuple(sorted((k, tuple(v) if isinstance(v, list | tuple) else v) for k, v in params.items()))
+
+
+@lru_cache(maxsize=256)
+def _engine_arl(detector: str, frozen: tuple[tuple[str, Any], ...]) -> float:
+    from .design.engine import arl
+
+    return float(arl(detector, {k: list(v) if isinstance(v, tuple) else v for k, v in frozen}))
+
+
+def spread_arl(limit: float, n: float) -> float:
+    """In-control ARL of the spread chart from the normal-theory distribution of its statistic.
+
+    S with n >= 2: (n - 1) s^2 / sigma^2 is chi-square with n - 1 degrees of freedom. Moving range: the
+    range of two normals, P(MR > (d2 + L d3) sigma) = 2 (1 - Phi(limit_mr / sqrt 2)); consecutive moving
+    ranges overlap, so this point-wise ARL is an approximation (the true one is somewhat longer).
+    """
+    if n < 1.5:
+        upper = _D2_2 + limit * _D3_2
+        return 1.0 / (2.0 * stats.norm.sf(upper / math.sqrt(2.0)))
+    m = int(round(n))
+    c4 = math.sqrt(2.0 / (m - 1)) * math.exp(math.lgamma(m / 2) - math.lgamma((m - 1) / 2))
+    half = limit * math.sqrt(1 - c4 * c4)
+    p = stats.chi2.sf((m - 1) * (c4 + half) ** 2, m - 1)
+    if c4 - half > 0:
+        p += stats.chi2.cdf((m - 1) * (c4 - half) ** 2, m - 1)
+    return 1.0 / p
+
+
+def point_period_s(config: Config, tag: str, sample_period_s: float | None) -> float | None:
+    """Seconds one charted point takes for this tag."""
+    subgroup = resolve_tag(config, tag).subgroup
+    if subgroup.window:
+        return subgroup.window_ns / 1e9
+    if sample_period_s is None:
+        return None
+    return sample_period_s * subgroup.count
+
+
+def designed_intervals(config: Config, limits: LimitsFile | None) -> list[dict[str, Any]]:
+    """Per tag in the limits file and detector: in-control ARL (points) and the designed interval (time)."""
+    rows: list[dict[str, Any]] = []
+    if limits is None:
+        return rows
+    for tag, tag_limits in limits.tags.items():
+        settings = resolve_tag(config, tag)
+        period = point_period_s(config, tag, tag_limits.sample_period_s)
+        for name, params in settings.detectors.items():
+            if name == "spread":
+                arl = spread_arl(params.limit, tag_limits.subgroup_size)
+            else:
+                arl = _engine_arl(name, _freeze(params.model_dump(by_alias=True)))
+            interval = arl * period if period else None
+            rows.append({
+                "tag": tag, "detector": name, "arl": arl,
+                "period": format_duration(period * 1e9) if period else "?",
+                "interval_s": interval,
+                "interval": format_duration(interval * 1e9) if interval else "unknown (no sample period)",
+            })  # fmt: skip
+    return rows
+
+
+def compare_with_observed(summary: dict[str, Any], config: Config, limits: LimitsFile | None) -> list[str]:
+    """Add designed rates to a replay summary, per tag and detector, and flag tags far above them.
+
+    Raises are compared with a Poisson count at the designed rate over the tag's span; a count with
+    probability below FLAG_P_VALUE is flagged. (After a raise the alarm holds for ``clear_after`` points,
+    so the designed rate is a slight overestimate of raises: the flag errs on the quiet side.)
+    """
+    flags: list[str] = []
+    for row in designed_intervals(config, limits):
+        tag_row = summary["tags"].get(row["tag"])
+        if tag_row is None or row["interval_s"] is None:
+            continue
+        span_s = tag_row["span_days"] * 86400.0
+        expected = span_s / row["interval_s"] if row["interval_s"] else 0.0
+        observed = tag_row["raises"].get(row["detector"], 0)
+        p_value = float(stats.poisson.sf(observed - 1, expected)) if observed > 0 else 1.0
+        flagged = observed > 0 and p_value < FLAG_P_VALUE
+        tag_row.setdefault("designed", {})[row["detector"]] = {
+            "in_control_arl_points": row["arl"],
+            "designed_interval": row["interval"],
+            "designed_raises_per_day": 86400.0 / row["interval_s"],
+            "expected_raises_in_span": expected,
+            "observed_raises": observed,
+            "far_above_design": flagged,
+        }
+        if flagged:
+            flags.append(f"{row['tag']} {row['detector']}: {observed} raises where about {expected:.2g} were "
+                         f"designed (one per {row['interval']}): a real change, autocorrelation "
+                         "or a stale baseline")  # fmt: skip
+    summary["far_above_design"] = flags
+    return flags

@@ -1,0 +1,59 @@
+"""Designed in-control alarm intervals in time, and the flag on tags that alarm far more than designed."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from scipy import stats
+
+from streamguard.config import parse_config
+from streamguard.expected_rates import compare_with_observed, designed_intervals, spread_arl
+from streamguard.limits import LimitsFile, TagLimits
+
+
+def _limits(period_s: float) -> LimitsFile:
+    return LimitsFile(tags={"TT-1": TagLimits(mean=0.0, sigma=1.0, sample_period_s=period_s)})
+
+
+def test_three_sigma_individuals_at_1_hz_alarm_every_six_minutes() -> None:
+    """ARL 370.4 points (normal theory) at one point per second is a false alarm every ~6.2 minutes."""
+    config = parse_config({"detectors": {"shewhart": {"rules": ["we1"]}}})
+    (row,) = designed_intervals(config, _limits(1.0))
+    assert row["arl"] == pytest.approx(1 / (2 * stats.norm.sf(3)), rel=1e-3)
+    assert row["interval_s"] == pytest.approx(370.4, rel=1e-3)
+
+
+def test_subgroup_window_sets_the_point_period() -> None:
+    """With one-minute windows a point takes 60 s whatever the sample period."""
+    config = parse_config({"detectors": {"cusum": {"k": 0.5, "h": 5.0}}, "subgroup": {"window": "60s"}})
+    (row,) = designed_intervals(config, _limits(1.0))
+    # CUSUM k = 0.5, h = 5: ARL 465 (Montgomery's CUSUM ARL table; Lucas & Crosier 1982).
+    assert row["arl"] == pytest.approx(465, rel=0.005)
+    assert row["interval_s"] == pytest.approx(465 * 60, rel=0.005)
+
+
+def test_spread_arl_matches_simulation() -> None:
+    """S-chart ARL from the chi-square law agrees with a seeded simulation of s for n = 5 (3-sigma limits):
+    the exceedance probability is within 4 binomial standard errors."""
+    rng = np.random.default_rng(99)
+    n, draws = 5, 2_000_000
+    s = rng.standard_normal((draws, n)).std(axis=1, ddof=1)
+    c4 = math.sqrt(2 / (n - 1)) * math.exp(math.lgamma(n / 2) - math.lgamma((n - 1) / 2))
+    p_sim = float(np.mean(s > c4 + 3 * math.sqrt(1 - c4 * c4)))
+    p = 1 / spread_arl(3.0, n)
+    assert abs(p_sim - p) < 4 * math.sqrt(p * (1 - p) / draws)
+
+
+def test_flags_tags_far_above_design_by_poisson_tail() -> None:
+    """A tag designed for one raise per ~64 days that raised 4 times in 3 days is flagged; one raise is not
+    (Poisson tail probabilities, scipy)."""
+    config = parse_config({"detectors": {"shewhart": {"limit": 4.4, "rules": ["we1"]}}, "subgroup": {"window": "60s"}})
+    summary = {"tags": {"TT-1": {"span_days": 3.0, "raises": {"shewhart": 4}}}}
+    flags = compare_with_observed(summary, config, _limits(10.0))
+    assert len(flags) == 1 and "TT-1 shewhart: 4 raises" in flags[0]
+    summary["tags"]["TT-1"]["raises"]["shewhart"] = 1
+    assert compare_with_observed(summary, config, _limits(10.0)) == []
+    assert summary["tags"]["TT-1"]["designed"]["shewhart"]["expected_raises_in_span"] == pytest.approx(
+        3 * 1440 / (1 / (2 * stats.norm.sf(4.4))), rel=1e-3)

@@ -76,7 +76,7 @@ def test_bad_sizes_are_refused() -> None:
     """A subgroup of one has no range and no standard deviation."""
     for bad in (1, 0, 2.5):
         with pytest.raises(ValueError):
-            constants.d2(bad)  # type: ignore[arg-type]
+            constants.d2(bad)
 
 
 def test_constants_are_fast() -> None:

@@ -15,7 +15,7 @@ from scipy.stats import norm
 
 from streamguard.design import arl, run_length
 from streamguard.design.shewhart_arl import shewhart_chain
-from streamguard.design.simulation import shewhart_runs
+from streamguard.design.simulation import shewhart_runs, simulate_shewhart
 
 SIMULATION_SE = 4.0
 
@@ -122,8 +122,8 @@ def _trend(key: Hashable, direction: int) -> Hashable | None:
 
 
 def _alternating(key: Hashable, direction: int) -> Hashable | None:
-    count, last = (0, 0) if key == "first point" else key  # type: ignore[misc]
-    count = count + 1 if direction == -last else 1
+    previous: tuple[int, int] = (0, 0) if key == "first point" else key  # type: ignore[assignment]
+    count = previous[0] + 1 if direction == -previous[1] else 1
     return None if count >= 13 else (count, direction)
 
 
@@ -131,12 +131,12 @@ def _alternating(key: Hashable, direction: int) -> Hashable | None:
 def test_order_rules_simulation_matches_an_independent_rank_chain(rule: str, update: Callable) -> None:
     """nelson3 (6 points rising or falling) and nelson4 (14 alternating) in control, simulated vs exact.
 
-    The reference is the rank chain above, extrapolated from 60 and 120 cells (Richardson); the
-    simulated ARL must lie within 4 standard errors of it.
+    The reference is the rank chain above, extrapolated from 60 and 120 cells (Richardson); the ARL
+    simulated from 10,000 seeded runs must lie within 4 standard errors of it.
     """
     coarse, fine = _rank_chain_arl(update, 60), _rank_chain_arl(update, 120)
     reference = fine + (fine - coarse) / 3.0
-    result = run_length("shewhart", {"limit": 30.0, "rules": [rule]})
+    result = simulate_shewhart(30.0, (rule,), 8, 0.0, 0.0, runs=10_000)
     assert result.standard_error is not None
     assert "simulation" in result.method
     assert abs(result.arl - reference) <= SIMULATION_SE * result.standard_error
@@ -152,3 +152,12 @@ def test_steady_state_of_rule_one_equals_zero_state() -> None:
     """Rule 1 alone has no memory, so the conditional steady-state ARL is the zero-state ARL."""
     result = run_length("shewhart", {"limit": 3.0}, 1.0)
     assert result.steady_state_arl == pytest.approx(result.arl, rel=1e-9)
+
+
+def test_order_rules_go_through_simulation_with_a_standard_error() -> None:
+    """The public entry point routes nelson3 to the seeded simulation and reports its precision."""
+    result = run_length("shewhart", {"rules": ["we1", "nelson3"]}, shift=2.0)
+    assert "simulation" in result.method and result.standard_error is not None
+    assert result.tolerance == pytest.approx(2 * result.standard_error / result.arl)
+    # On the same points, a chart with an extra rule signals no later, so its ARL cannot be longer.
+    assert result.arl <= arl("shewhart", {"rules": ["we1"]}, shift=2.0) + 4 * result.standard_error

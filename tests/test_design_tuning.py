@@ -10,7 +10,7 @@ from scipy.stats import norm
 
 from streamguard.config import Detectors, Subgroup
 from streamguard.design import arl, parse_budget, tune
-from streamguard.design.tuning import solve_cusum_h, solve_ewma_L, solve_shewhart_limit
+from streamguard.design.tuning import solve_cusum_h, solve_ewma_limit, solve_shewhart_limit
 from streamguard.errors import UsageError
 
 
@@ -39,9 +39,9 @@ def test_solved_h_for_the_published_design_is_5() -> None:
     assert solve_cusum_h(0.5, 465.45) == pytest.approx(5.0, abs=2e-3)
 
 
-def test_solved_ewma_limit_recovers_the_published_L() -> None:
+def test_solved_ewma_limit_recovers_the_published_value() -> None:
     """lambda = 0.1 and ARL0 = 500 give L = 2.814 to its printed 3 decimals (Lucas & Saccucci 1990)."""
-    assert solve_ewma_L(0.1, 500.0) == pytest.approx(2.814, abs=0.0005 + 1e-4)
+    assert solve_ewma_limit(0.1, 500.0) == pytest.approx(2.814, abs=0.0005 + 1e-4)
 
 
 def test_shewhart_limit_is_the_normal_quantile() -> None:
@@ -78,14 +78,14 @@ def test_ewma_lambda_is_a_local_optimum() -> None:
     for other in (lam / 1.3, lam * 1.3):
         if not 0.02 <= other <= 0.5:
             continue
-        L = solve_ewma_L(other, plan.required_arl)
+        L = solve_ewma_limit(other, plan.required_arl)
         detection = arl("ewma", {"lambda": other, "L": L, "limits": "asymptotic"}, plan.chart_shift)
         assert detection >= best * (1 - 1e-3)
 
 
 def test_run_rules_that_cannot_meet_the_budget_are_reported_not_solved() -> None:
-    """Rules 1-4 false-alarm every ~92 points at any limit: a month of 1 s points is out of reach."""
-    plan = tune("1/30d", "1s", shift=1.0, rules=("we1", "we2", "we3", "we4"))
+    """Rules 1-4 false-alarm every ~92 points at any limit: a day of 10 s points (8,640) is out of reach."""
+    plan = tune("1/1d", "10s", shift=1.0, rules=("we1", "we2", "we3", "we4"))
     shewhart = plan.options[2]
     assert not shewhart.feasible
     assert shewhart.in_control_arl is not None and shewhart.in_control_arl < 200

@@ -79,6 +79,17 @@ def register(subparsers: Any) -> None:
     tune_parser.set_defaults(handler=run_tune_command)
 
 
+def _finite_or_none(value: Any) -> Any:
+    """JSON has no infinity: an ARL beyond double precision (> 1e14 points) is written as null."""
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    if isinstance(value, dict):
+        return {key: _finite_or_none(item) for key, item in value.items()}
+    if isinstance(value, list | tuple):
+        return [_finite_or_none(item) for item in value]
+    return value
+
+
 def _float(option: str, text: str) -> float:
     try:
         value = float(text)
@@ -107,7 +118,8 @@ def _arl_params(args: argparse.Namespace) -> dict[str, Any]:
     for other, names in _DETECTOR_OPTIONS.items():
         stray = [_OPTION_NAMES[name] for name in names if other != detector and getattr(args, name) is not None]
         if stray:
-            raise UsageError(f"arl {detector}: {', '.join(stray)} belong(s) to {other}, not {detector}")
+            verb = "is an option" if len(stray) == 1 else "are options"
+            raise UsageError(f"arl {detector}: {', '.join(stray)} {verb} of {other}, not of {detector}")
     params: dict[str, Any] = {}
     for name in _DETECTOR_OPTIONS[detector]:
         text = getattr(args, name)
@@ -135,6 +147,8 @@ def _shifts(text: str) -> list[float]:
 def _number(value: float | None) -> str:
     if value is None:
         return "-"
+    if math.isinf(value):
+        return "> 1e14"
     if abs(value) >= 1000:
         return f"{value:,.0f}"
     return f"{value:.4g}"
@@ -187,7 +201,7 @@ def run_arl_command(args: argparse.Namespace, out: TextIO | None = None) -> int:
     if args.json:
         document = {"detector": args.detector, "params": params, "subgroup_size": subgroup_size,
                     "results": [result.to_dict() for result in results]}  # fmt: skip
-        out.write(json.dumps(document, indent=2) + "\n")
+        out.write(json.dumps(_finite_or_none(document), indent=2) + "\n")
     else:
         _print_run_lengths(args.detector, params, subgroup_size, results, out)
     return 0
@@ -244,7 +258,7 @@ def run_tune_command(args: argparse.Namespace, out: TextIO | None = None) -> int
         run_length=_whole("--run-length", args.run_length),
     )
     if args.json:
-        out.write(json.dumps(plan.to_dict(), indent=2) + "\n")
+        out.write(json.dumps(_finite_or_none(plan.to_dict()), indent=2) + "\n")
     else:
         _print_plan(plan, out)
     return 0

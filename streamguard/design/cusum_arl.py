@@ -16,10 +16,10 @@ Restarting the one-sided schemes at that moment is then a renewal, and
     ARL = (U_s L_0 + L_s U_0 - U_0 L_0) / (U_0 + L_0)
 
 with U, L the one-sided ARLs from 0 and from the start s; for s = 0 this is 1/ARL = 1/U_0 + 1/L_0.
-This is the identity of Lucas & Crosier (Technometrics 24, 1982) for headstarts; the argument above
-shows it exact for headstart * h <= h/2 + k, which covers the usual headstart h/2. Beyond that, and for
-what the identity cannot give (run-length quantiles, SDRL, steady state), the exact two-dimensional
-chain on (upper, lower) is used.
+(For headstarts an identity of this form goes back to Lucas & Crosier, Technometrics 24, 1982 — from
+memory.) The argument above makes it exact whenever headstart * h <= h/2 + k, which covers the usual
+headstart h/2. Beyond that, and for what the identity cannot give (run-length quantiles, SDRL, steady
+state), the joint two-dimensional chain on (upper, lower) is used, with m^2 states.
 
 Siegmund's corrected diffusion approximation is kept as an independent check.
 """
@@ -32,7 +32,7 @@ import numpy as np
 import scipy.sparse as sparse
 from scipy.special import ndtr
 
-from .markov import AbsorbingChain, Converged, converge, extrapolate, extrapolate_survival
+from .markov import AbsorbingChain, Converged, converge, extrapolate, extrapolate_survival, read_quantiles
 from .results import DEFAULT_QUANTILES, RunLength
 
 # Grid width at the coarsest level, in units of the point's standard deviation.
@@ -47,7 +47,8 @@ SIDES = ("two", "upper", "lower")
 
 
 def _coarse_states(h: float) -> int:
-    return max(_MIN_STATES, math.ceil(h / _COARSE_WIDTH))
+    # Three levels (m, 2m, 4m) must fit under the cap; a very long h then gets a coarser start.
+    return min(max(_MIN_STATES, math.ceil(h / _COARSE_WIDTH)), _MAX_STATES // 4)
 
 
 def _one_sided_rows(values: np.ndarray, k: float, h: float, mean: float, states: int) -> np.ndarray:
@@ -97,7 +98,7 @@ def _two_sided_rows(upper: np.ndarray, lower: np.ndarray, k: float, h: float, me
 
 
 def two_sided_chain(k: float, h: float, mean: float, states: int, start: float = 0.0) -> AbsorbingChain:
-    """The exact two-dimensional chain on (upper, lower), m^2 states."""
+    """The joint two-dimensional chain on (upper, lower): m^2 states, no assumption about the sides."""
     width = 2.0 * h / (2 * states - 1)
     grid = np.arange(states) * width
     upper = np.repeat(grid, states)
@@ -119,6 +120,11 @@ def combination_is_exact(k: float, h: float, start: float) -> bool:
 
 def combine_sides(upper_zero: float, upper_start: float, lower_zero: float, lower_start: float) -> float:
     """Two-sided ARL from one-sided ARLs started at 0 and at the headstart."""
+    if math.isinf(upper_zero) or math.isinf(lower_zero):
+        # A side that practically never signals leaves the other one to end the run alone.
+        return math.inf if math.isinf(upper_zero) and math.isinf(lower_zero) else (
+            lower_start if math.isinf(upper_zero) else upper_start
+        )
     numerator = upper_start * lower_zero + lower_start * upper_zero - upper_zero * lower_zero
     return float(numerator / (upper_zero + lower_zero))
 
@@ -129,9 +135,16 @@ def _combined_at(k: float, h: float, mean: float, start: float, states: int) -> 
     upper_zero, lower_zero = upper.arl(), lower.arl()
     if start == 0.0:
         return combine_sides(upper_zero, upper_zero, lower_zero, lower_zero)
-    upper_start = 1.0 + float(_one_sided_rows(np.array([start]), k, h, mean, states)[0] @ upper.remaining())
-    lower_start = 1.0 + float(_one_sided_rows(np.array([start]), k, h, -mean, states)[0] @ lower.remaining())
+    upper_start = _arl_from(start, upper, k, h, mean, states)
+    lower_start = _arl_from(start, lower, k, h, -mean, states)
     return combine_sides(upper_zero, upper_start, lower_zero, lower_start)
+
+
+def _arl_from(start: float, chain: AbsorbingChain, k: float, h: float, mean: float, states: int) -> float:
+    """One-sided ARL from an arbitrary start value, through the chain's expected remaining run lengths."""
+    if chain.never_signals:
+        return math.inf
+    return 1.0 + float(_one_sided_rows(np.array([start]), k, h, mean, states)[0] @ chain.remaining())
 
 
 def cusum_arl(k: float, h: float, headstart: float, mean: float, side: str = "two",
@@ -146,7 +159,7 @@ def cusum_arl(k: float, h: float, headstart: float, mean: float, side: str = "tw
     if combination_is_exact(k, h, start):
         result = converge(lambda m: _combined_at(k, h, mean, start, m), base, tolerance, _MAX_STATES)
         return result, "one-sided Markov chains (Brook & Evans 1972) combined exactly, Richardson-extrapolated"
-    base_2d = max(8, math.ceil(h / 0.5))
+    base_2d = min(max(8, math.ceil(h / 0.5)), _MAX_SIDE_2D // 4)
     result = converge(lambda m: two_sided_chain(k, h, mean, m, start).arl(), base_2d, tolerance, _MAX_SIDE_2D)
     return result, "two-dimensional Markov chain on (upper, lower), Richardson-extrapolated"
 
@@ -164,7 +177,10 @@ def siegmund_arl(k: float, h: float, mean: float, side: str = "two") -> float:
         b = h + 1.166
         if abs(drift) < 1e-9:
             return b * b
-        return (math.exp(-2.0 * drift * b) + 2.0 * drift * b - 1.0) / (2.0 * drift * drift)
+        exponent = -2.0 * drift * b
+        if exponent > 700.0:  # beyond double precision: the side practically never signals
+            return math.inf
+        return (math.exp(exponent) + 2.0 * drift * b - 1.0) / (2.0 * drift * drift)
 
     if side == "upper":
         return one_side(mean - k)
@@ -207,8 +223,9 @@ def cusum_run_length(k: float, h: float, headstart: float, shift: float, chart_s
         coarse, fine = build(chart_shift, levels[0]), build(chart_shift, levels[1])
         sdrl = extrapolate(coarse.sdrl(), fine.sdrl())
         if quantiles:
-            survival = extrapolate_survival(coarse.survival(min(quantiles)), fine.survival(min(quantiles)))
-            quantile_values = {q: survival.quantile(q) for q in quantiles}
+            lowest = 1.0 - max(quantiles)
+            survival = extrapolate_survival(coarse.survival(lowest), fine.survival(lowest))
+            quantile_values = read_quantiles(survival, quantiles)
         if steady_state:
             coarse_ic = coarse if chart_shift == 0.0 else build(0.0, levels[0])
             fine_ic = fine if chart_shift == 0.0 else build(0.0, levels[1])

@@ -24,7 +24,15 @@ import numpy as np
 import scipy.sparse as sparse
 from scipy.special import ndtr
 
-from .markov import AbsorbingChain, Converged, Survival, converge, extrapolate, extrapolate_survival
+from .markov import (
+    AbsorbingChain,
+    Converged,
+    Survival,
+    converge,
+    extrapolate,
+    extrapolate_survival,
+    read_quantiles,
+)
 from .results import DEFAULT_QUANTILES, RunLength
 
 # Cells per unit of lambda at the coarsest level (each point moves e by lambda * z).
@@ -144,10 +152,10 @@ class ExactLimitsStart:
         mean = self.arl()
         return math.sqrt(max(second - mean * mean, 0.0))
 
-    def survival(self, lowest_quantile_mass: float) -> Survival:
+    def survival(self, lowest_mass: float) -> Survival:
         continued = AbsorbingChain(self.homogeneous.transient, self.after, banded=True)
-        rest = continued.survival(lowest_quantile_mass)
-        # rest.head[0] is 1 by construction (mass before point T+1); rescale by P(N > T).
+        rest = continued.survival(lowest_mass)
+        # rest.head = [1, P(N > T), P(N > T+1), ...]: its first entry stands for the start, not a point.
         return Survival(np.concatenate([self.head[:-1], rest.head[1:]]), rest.tail_ratio)
 
 
@@ -178,17 +186,17 @@ def ewma_run_length(lam: float, L: float, limits: str, shift: float, chart_shift
         coarse, fine = (asymptotic_chain(lam, L, chart_shift, m) for m in levels)
         sdrl = extrapolate(coarse.sdrl(), fine.sdrl())
         if quantiles:
-            survival = extrapolate_survival(coarse.survival(min(quantiles)), fine.survival(min(quantiles)))
-            quantile_values = {q: survival.quantile(q) for q in quantiles}
+            lowest = 1.0 - max(quantiles)
+            survival = extrapolate_survival(coarse.survival(lowest), fine.survival(lowest))
+            quantile_values = read_quantiles(survival, quantiles)
         coarse_chain, fine_chain = coarse, fine
     else:
         coarse_start, fine_start = (ExactLimitsStart(lam, L, chart_shift, m) for m in levels)
         sdrl = extrapolate(coarse_start.sdrl(), fine_start.sdrl())
         if quantiles:
-            survival = extrapolate_survival(
-                coarse_start.survival(min(quantiles)), fine_start.survival(min(quantiles))
-            )
-            quantile_values = {q: survival.quantile(q) for q in quantiles}
+            lowest = 1.0 - max(quantiles)
+            survival = extrapolate_survival(coarse_start.survival(lowest), fine_start.survival(lowest))
+            quantile_values = read_quantiles(survival, quantiles)
         coarse_chain, fine_chain = coarse_start.homogeneous, fine_start.homogeneous
     steady = None
     if steady_state:

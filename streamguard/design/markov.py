@@ -16,15 +16,17 @@ not a grid centre, such as a CUSUM headstart, costs no discretisation error of i
 
 from __future__ import annotations
 
+import math
 from collections.abc import Callable
 from dataclasses import dataclass
+from typing import TypeAlias
 
 import numpy as np
 import scipy.linalg as dense_linalg
 import scipy.sparse as sparse
 import scipy.sparse.linalg as sparse_linalg
 
-Matrix = np.ndarray | sparse.csr_matrix
+Matrix: TypeAlias = np.ndarray | sparse.csr_matrix
 
 # Stepping the survival function stops once the surviving distribution is this close (L1) to the
 # quasi-stationary one; from there on each point removes the same fraction of the mass.
@@ -35,6 +37,9 @@ _MAX_STEPS = 200_000
 # move an ARL by at most ARL * states * 1e-18.
 _DENSE_LIMIT = 128
 _NEGLIGIBLE = 1e-18
+# When no state loses more than this per point, the ARL (> 1e14) is beyond what double precision can
+# resolve from 1 - (1 - p); it is reported as infinite.
+_NEVER = 1e-14
 
 
 @dataclass(frozen=True)
@@ -43,12 +48,6 @@ class Survival:
 
     head: np.ndarray
     tail_ratio: float
-
-    def at(self, t: int) -> float:
-        last = self.head.shape[0] - 1
-        if t <= last:
-            return float(self.head[t])
-        return float(self.head[last] * self.tail_ratio ** (t - last))
 
     def quantile(self, q: float) -> int:
         """Smallest t with P(N <= t) >= q: the run length a fraction q of runs does not exceed."""
@@ -70,8 +69,18 @@ class Survival:
         return np.concatenate([self.head, extra])
 
 
+def read_quantiles(survival: Survival, quantiles: tuple[float, ...]) -> dict[float, int]:
+    """Quantiles of a survival function; none when the run practically never ends."""
+    try:
+        return {q: survival.quantile(q) for q in quantiles}
+    except ArithmeticError:
+        return {}
+
+
 def extrapolate(coarse: float, fine: float) -> float:
     """Richardson step for an error that falls as 1/states^2: fine + (fine - coarse) / 3."""
+    if not (math.isfinite(coarse) and math.isfinite(fine)):
+        return float(fine)
     return float(fine + (fine - coarse) / 3.0)
 
 
@@ -105,6 +114,8 @@ def converge(evaluate: Callable[[int], float], base: int, tolerance: float, max_
     while True:
         coarse = extrapolate(values[-3], values[-2])
         fine = extrapolate(values[-2], values[-1])
+        if math.isinf(fine):
+            return Converged(fine, 0.0, levels[-1])
         error = abs(fine - coarse) / max(abs(fine), 1e-300)
         if error <= tolerance or 2 * levels[-1] > max_states:
             return Converged(fine, error, levels[-1])
@@ -156,11 +167,20 @@ class AbsorbingChain:
             self._remaining = self.solve(np.ones(self.size))
         return self._remaining
 
+    @property
+    def never_signals(self) -> bool:
+        exit_probability = 1.0 - np.asarray(self.transient.sum(axis=1)).ravel()
+        return bool(exit_probability.max() < _NEVER and 1.0 - self.first_step.sum() < _NEVER)
+
     def arl(self) -> float:
+        if self.never_signals:
+            return math.inf
         return float(1.0 + self.first_step @ self.remaining())
 
     def sdrl(self) -> float:
         """Standard deviation of N from E[N^2] = 1 + 2 r.L + r.M2, with M2 = 2 (I-Q)^-1 L - L."""
+        if self.never_signals:
+            return math.inf
         remaining = self.remaining()
         second_from_state = 2.0 * self.solve(remaining) - remaining
         second = 1.0 + 2.0 * self.first_step @ remaining + self.first_step @ second_from_state
@@ -176,8 +196,12 @@ class AbsorbingChain:
         if self._quasi_stationary is not None:
             return self._quasi_stationary
         vector = np.full(self.size, 1.0 / self.size)
-        for _ in range(200):
-            updated = np.abs(self.solve(vector, transposed=True))
+        for _ in range(200 if not self.never_signals else 20_000):
+            if self.never_signals:
+                # (I - Q) is singular to working precision: plain power iteration instead.
+                updated = np.abs(self.advance(vector))
+            else:
+                updated = np.abs(self.solve(vector, transposed=True))
             updated /= updated.sum()
             if np.abs(updated - vector).sum() < 1e-13:
                 vector = updated
@@ -192,18 +216,23 @@ class AbsorbingChain:
         Conditional steady state: the shift happens after the chart has run in control long enough,
         without a false alarm, for its statistic to have settled.
         """
+        if self.never_signals:
+            return math.inf
         distribution, _ = in_control.quasi_stationary()
         return float(distribution @ self.remaining())
 
-    def survival(self, lowest_quantile_mass: float = 0.05) -> Survival:
-        """P(N > t) stepped forward until the mass is below ``lowest_quantile_mass`` or has settled."""
+    def survival(self, lowest_mass: float = 0.05) -> Survival:
+        """P(N > t) stepped forward until it is below ``lowest_mass`` (1 - the highest quantile wanted)
+        or the surviving distribution has settled, after which the tail is geometric."""
+        if self.never_signals:
+            return Survival(np.ones(1), 1.0)
         settled, ratio = self.quasi_stationary()
         values = [1.0]
         vector = self.first_step.copy()
         for _ in range(_MAX_STEPS):
             mass = float(vector.sum())
             values.append(mass)
-            if mass <= lowest_quantile_mass * 0.5 or mass <= 0.0:
+            if mass <= lowest_mass * 0.5 or mass <= 0.0:
                 break
             if np.abs(vector / mass - settled).sum() < _SETTLED:
                 break

@@ -26,7 +26,7 @@ import numpy as np
 import scipy.sparse as sparse
 from scipy.special import ndtr
 
-from .markov import AbsorbingChain
+from .markov import AbsorbingChain, read_quantiles
 from .results import DEFAULT_QUANTILES, RunLength
 
 RULE_NAMES = (
@@ -182,7 +182,7 @@ def shewhart_run_length(limit: float, rules: Iterable[str], run_length: int, shi
 
         return simulate_shewhart(limit, rules, run_length, shift, chart_shift, quantiles, seed=seed)
     chain = shewhart_chain(limit, canonical, run_length, chart_shift)
-    survival = chain.survival(min(quantiles)) if quantiles else None
+    survival = chain.survival(1.0 - max(quantiles)) if quantiles else None
     steady = None
     if steady_state:
         in_control = chain if chart_shift == 0.0 else shewhart_chain(limit, canonical, run_length, 0.0)
@@ -196,7 +196,7 @@ def shewhart_run_length(limit: float, rules: Iterable[str], run_length: int, shi
         tolerance=1e-9,
         method=f"exact Markov chain on the rule history (Champ & Woodall 1987), {structure.states} states",
         sdrl=chain.sdrl(),
-        quantiles={q: survival.quantile(q) for q in quantiles} if survival is not None else {},
+        quantiles=read_quantiles(survival, quantiles) if survival is not None else {},
         steady_state_arl=steady,
     )
 

@@ -184,8 +184,8 @@ def ewma_runs(lam: float, L: float, exact: bool, mean: float, runs: int, max_poi
 
 
 def simulate_shewhart(limit: float, rules: tuple[str, ...], run_length: int, shift: float, chart_shift: float,
-                      quantiles: tuple[float, ...] = DEFAULT_QUANTILES, runs: int = 40_000,
-                      max_points: int = 40_000_000, seed: int | None = None) -> RunLength:  # fmt: skip
+                      quantiles: tuple[float, ...] = DEFAULT_QUANTILES, runs: int = 20_000,
+                      max_points: int = 20_000_000, seed: int | None = None) -> RunLength:  # fmt: skip
     """Shewhart run lengths by simulation; the seed is fixed unless given, so results repeat."""
     seed = DEFAULT_SEED if seed is None else seed
     result = shewhart_runs(limit, rules, run_length, chart_shift, runs, max_points, seed)

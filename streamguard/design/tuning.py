@@ -38,6 +38,9 @@ _BUDGET = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*/\s*(\S+)\s*$")
 LAMBDA_RANGE = (0.02, 0.5)
 # Tighter than the 0.1 % promise so that solving and rounding together stay inside it.
 _SOLVE_TOLERANCE = 2e-4
+# Search ceilings: beyond them a chart would need tens of thousands of states (and would be useless).
+_MAX_H = 400.0
+_MAX_L = 40.0
 
 
 @dataclass(frozen=True)
@@ -176,9 +179,11 @@ def _polish(quick: Callable[[float], float], precise: Callable[[float], float], 
     goal = math.log(target)
     step = 1e-3 * x
     slope = (math.log(quick(x + step)) - math.log(quick(x))) / step
+    if not (math.isfinite(slope) and slope > 0):
+        return x
     for _ in range(4):
         gap = math.log(precise(x)) - goal
-        if abs(gap) <= 2e-5 or slope <= 0:
+        if abs(gap) <= 2e-5 or not math.isfinite(gap):
             break
         x -= gap / slope
     return x
@@ -190,21 +195,25 @@ def solve_cusum_h(k: float, target_arl: float) -> float:
     Siegmund's approximation gives the first guess (within a few percent), the two-grid chain the
     root, and the converged chain the last correction.
     """
-    high = 1.0
-    while siegmund_arl(k, high, 0.0) < target_arl and high < 400.0:
+    low, high = 1e-3, 1.0
+    while siegmund_arl(k, high, 0.0) < target_arl and high < _MAX_H:
         high *= 2.0
-    approximate = optimize.brentq(lambda h: math.log(siegmund_arl(k, h, 0.0) / target_arl), 1e-3, high)
+    if siegmund_arl(k, low, 0.0) >= target_arl:
+        approximate = low
+    else:
+        approximate = optimize.brentq(lambda h: math.log(siegmund_arl(k, h, 0.0) / target_arl), low, high)
 
     def quick(h: float) -> float:
         return quick_cusum_arl(k, h, 0.0)
 
-    h = _solve_increasing(quick, target_arl, approximate, 400.0)
+    h = _solve_increasing(quick, target_arl, min(approximate, _MAX_H), _MAX_H)
     if h is None:
-        raise UsageError(f"no CUSUM decision interval reaches an in-control ARL of {target_arl:.4g}")
+        raise UsageError(f"no CUSUM decision interval up to h = {_MAX_H:g} reaches an in-control ARL of "
+                         f"{target_arl:.4g} with k = {k:g}: the target shift is small for this budget")  # fmt: skip
     return _polish(quick, lambda h: cusum_arl(k, h, 0.0, 0.0, "two", _SOLVE_TOLERANCE)[0].value, target_arl, h)
 
 
-def solve_ewma_L(lam: float, target_arl: float, limits: str = "asymptotic", guess: float | None = None,
+def solve_ewma_limit(lam: float, target_arl: float, limits: str = "asymptotic", guess: float | None = None,
                  quick: bool = False) -> float:  # fmt: skip
     """L for the required in-control ARL; ``quick`` stops at the two-grid ARL meant for searches."""
 
@@ -212,9 +221,9 @@ def solve_ewma_L(lam: float, target_arl: float, limits: str = "asymptotic", gues
         return quick_asymptotic_arl(lam, L, 0.0)
 
     start = guess if guess is not None else float(norm.isf(1.0 / (2.0 * target_arl)))
-    L = _solve_increasing(cheap, target_arl, start, 40.0)
+    L = _solve_increasing(cheap, target_arl, start, _MAX_L)
     if L is None:
-        raise UsageError(f"no EWMA limit reaches an in-control ARL of {target_arl:.4g}")
+        raise UsageError(f"no EWMA limit up to L = {_MAX_L:g} reaches an in-control ARL of {target_arl:.4g}")
     if quick and limits == "asymptotic":
         return L
     return _polish(cheap, lambda L: ewma_arl(lam, L, limits, 0.0, _SOLVE_TOLERANCE)[0].value, target_arl, L)
@@ -228,7 +237,7 @@ def solve_ewma(target_arl: float, chart_shift: float) -> tuple[float, float]:
     def detection(log_lambda: float) -> float:
         lam = math.exp(log_lambda)
         if lam not in solved:
-            L = solve_ewma_L(lam, target_arl, guess=last_L[-1] if last_L else None, quick=True)
+            L = solve_ewma_limit(lam, target_arl, guess=last_L[-1] if last_L else None, quick=True)
             last_L.append(L)
             solved[lam] = (L, quick_asymptotic_arl(lam, L, chart_shift))
         return solved[lam][1]
@@ -303,7 +312,10 @@ def tune(false_alarms: str, period: str, shift: float, subgroup_size: int | None
 
 def _cusum_option(required: float, mean: float, point_period_s: float, within_s: float | None) -> TuningOption:
     k = round(mean / 2.0, 4)
-    h = round(solve_cusum_h(k, required), 4)
+    try:
+        h = round(solve_cusum_h(k, required), 4)
+    except UsageError as error:
+        return TuningOption("cusum", {"k": k, "h": None, "headstart": 0.0}, False, note=str(error))
     in_control = cusum_arl(k, h, 0.0, 0.0)[0].value
     detection, method = cusum_arl(k, h, 0.0, mean)
     delay, meets = _delay(detection.value, point_period_s, within_s)
@@ -312,9 +324,12 @@ def _cusum_option(required: float, mean: float, point_period_s: float, within_s:
 
 
 def _ewma_option(required: float, mean: float, point_period_s: float, within_s: float | None) -> TuningOption:
-    lam, L = solve_ewma(required, mean)
-    lam = round(lam, 3)
-    L = round(solve_ewma_L(lam, required, guess=L), 4)
+    try:
+        lam, L = solve_ewma(required, mean)
+        lam = round(lam, 3)
+        L = round(solve_ewma_limit(lam, required, guess=L), 4)
+    except UsageError as error:
+        return TuningOption("ewma", {"lambda": None, "L": None, "limits": "asymptotic"}, False, note=str(error))
     in_control = ewma_arl(lam, L, "asymptotic", 0.0)[0].value
     detection, method = ewma_arl(lam, L, "asymptotic", mean)
     delay, meets = _delay(detection.value, point_period_s, within_s)

@@ -76,6 +76,8 @@ def register(subparsers: Any) -> None:
     tune_parser.add_argument("--rules", default="we1", help="Shewhart rules to tune with (default we1)")
     tune_parser.add_argument("--run-length", dest="run_length", default="8", help="we4 run length (default 8)")
     tune_parser.add_argument("--json", action="store_true", help="machine-readable output")
+    tune_parser.add_argument("--autocorrelation", help="lag-1 autocorrelation of the tag's samples (from the "
+                             "baseline report); above 0.5 the plan is flagged and remedies proposed")  # fmt: skip
     tune_parser.set_defaults(handler=run_tune_command)
 
 
@@ -257,9 +259,30 @@ def run_tune_command(args: argparse.Namespace, out: TextIO | None = None) -> int
         rules=_rules(args.rules),
         run_length=_whole("--run-length", args.run_length),
     )
+    caution = _autocorrelation_caution(args.autocorrelation)
     if args.json:
-        out.write(json.dumps(_finite_or_none(plan.to_dict()), indent=2) + "\n")
+        data = _finite_or_none(plan.to_dict())
+        if caution:
+            data["autocorrelation_caution"] = caution
+        out.write(json.dumps(data, indent=2) + "\n")
     else:
         _print_plan(plan, out)
+        if caution:
+            out.write("\n" + caution + "\n")
     return 0
+
+
+def _autocorrelation_caution(text: str | None) -> str:
+    """Run lengths assume independent points; say so, with numbers, when the tag's samples are not."""
+    if text is None:
+        return ""
+    r1 = _float("--autocorrelation", text)
+    if not -1.0 < r1 < 1.0:
+        raise UsageError(f"--autocorrelation must lie between -1 and 1, got {text}")
+    if r1 <= 0.5:
+        return ""
+    from ..phase1 import autocorrelation_remedy
+
+    return (f"caution: lag-1 autocorrelation {r1:.2f}: these settings assume independent points and will alarm "
+            f"far more often than budgeted on this tag. Remedies: {autocorrelation_remedy([r1])}")
 

@@ -57,3 +57,15 @@ def test_flags_tags_far_above_design_by_poisson_tail() -> None:
     assert compare_with_observed(summary, config, _limits(10.0)) == []
     assert summary["tags"]["TT-1"]["designed"]["shewhart"]["expected_raises_in_span"] == pytest.approx(
         3 * 1440 / (1 / (2 * stats.norm.sf(4.4))), rel=1e-3)
+
+
+def test_tune_flags_autocorrelated_tags_with_remedies(capsys: pytest.CaptureFixture[str]) -> None:
+    """tune with a lag-1 autocorrelation above 0.5 says the plan will alarm more than budgeted and names a
+    subgroup length and model: ar1 (threshold 0.5 is common practice)."""
+    from streamguard.cli import main
+
+    assert main(["tune", "--false-alarms", "1/30d", "--period", "10s", "--shift", "1", "--autocorrelation", "0.8"]) == 0
+    out = capsys.readouterr().out
+    assert "caution: lag-1 autocorrelation 0.80" in out and "model: ar1" in out and "subgroups of about" in out
+    assert main(["tune", "--false-alarms", "1/30d", "--period", "10s", "--shift", "1", "--autocorrelation", "0.2"]) == 0
+    assert "caution" not in capsys.readouterr().out

@@ -16,6 +16,7 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_valida
 
 from .durations import parse_duration
 from .errors import ConfigError
+from .service_config import CheckpointSection, MetricsSection, OutputSection, SourceSection
 from .timeparse import parse_time
 
 RULE_NAMES = (
@@ -192,6 +193,11 @@ class Config(_Strict):
     detectors: Detectors = Field(default_factory=default_detectors)
     alarms: Alarms = Alarms()
     tags: dict[str, TagSettings] = Field(default_factory=dict)
+    # The live service's sections (streamguard/service_config.py); replay and baseline ignore them.
+    source: SourceSection | None = None
+    output: OutputSection | None = None
+    metrics: MetricsSection | None = None
+    checkpoint: CheckpointSection | None = None
 
     @model_validator(mode="after")
     def _detectors_listed(self) -> Config:

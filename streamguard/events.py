@@ -28,8 +28,11 @@ def _number(x: float) -> float | None:
     return None if x is None or not math.isfinite(x) else float(x)
 
 
-@dataclass(frozen=True)
+@dataclass(slots=True)
 class Event:
+    """One event. Treat as read-only; not frozen only because frozen dataclasses cost ~3x to create,
+    and a noisy replay makes tens of thousands of them."""
+
     tag: str
     detector: str  # shewhart, cusum, ewma, spread, or "quality" for data-quality events
     rule: str

@@ -19,7 +19,7 @@ from .config import DETECTOR_NAMES, Config, config_fingerprint
 from .detectors.cusum import CusumState, run_cusum
 from .detectors.ewma import EwmaState, run_ewma
 from .detectors.shewhart import ShewhartState, run_shewhart
-from .detectors.spread import MOVING_RANGE, SpreadState, run_spread
+from .detectors.spread import SpreadState, run_spread
 from .events import DIRECTIONS, Event
 from .gate import QUALITY_KINDS, QUALITY_RULES, RANGE_START, REASONS, GateState, gate_kernel
 from .limits import LimitsFile
@@ -203,40 +203,46 @@ class Pipeline:
     def _detect(self, points: Points) -> list[Event]:
         z, charted = self.standardize(points)
         events: list[Event] = []
-        counters = self.counters
         for name in self.detectors:
             out = self.run_detector(name, points, z, charted)
-            detector_index = DETECTOR_NAMES.index(name)
-            for j in range(out.point.shape[0]):
-                i = int(out.point[j])
-                t = int(points.tag[i])
-                kind = "clear" if out.kind[j] == CLEAR else "raise"
-                if kind == "raise":
-                    counters.raises[t, detector_index] += 1
-                    counters.in_alarm[t] += 1
-                    if counters.first_raise_ts[t] == 0:
-                        counters.first_raise_ts[t] = points.ts[i]
-                else:
-                    counters.in_alarm[t] -= 1
-                events.append(self._alarm_event(name, int(out.rule[j]), kind, int(out.direction[j]), points, i, t,
-                                                float(out.statistic[j]), float(out.limit[j])))  # fmt: skip
+            if out.point.shape[0]:
+                events.extend(self._alarm_events(name, points, out))
         return events
 
-    def _alarm_event(self, name: str, rule: int, kind: str, direction: int, points: Points, i: int, t: int,
-                     statistic: float, limit: float) -> Event:  # fmt: skip
+    def _alarm_events(self, name: str, points: Points, out: DetectorOutput) -> list[Event]:
+        """Count the transitions and make their Event objects, gathering columns with numpy first."""
+        counters = self.counters
+        tag = points.tag[out.point]
+        ts = points.ts[out.point]
+        is_raise = out.kind != CLEAR
+        column = DETECTOR_NAMES.index(name)
+        np.add.at(counters.raises[:, column], tag[is_raise], 1)
+        np.add.at(counters.in_alarm, tag, np.where(is_raise, 1, -1).astype(np.int32))
+        raised_tags, first = np.unique(tag[is_raise], return_index=True)
+        if raised_tags.size:
+            first_ts = ts[is_raise][first]
+            unset = counters.first_raise_ts[raised_tags] == 0
+            counters.first_raise_ts[raised_tags[unset]] = first_ts[unset]
         if name == "shewhart":
-            rule_name = SHEWHART_RULES[rule]
+            rule_names: tuple[str, ...] = SHEWHART_RULES
         elif name == "spread":
-            rule_name = SPREAD_RULES[rule] if rule in (MOVING_RANGE, 2) else "spread"
+            rule_names = SPREAD_RULES
         else:
-            rule_name = name
-        return Event(
-            tag=self.tags.names[t], detector=name, rule=rule_name, kind=kind, ts_ns=int(points.ts[i]),
-            value=float(points.mean[i]), statistic=statistic, limit=limit,
-            center=float(self.tags.centres.mean[t]), sigma=float(self.tags.centres.sigma[t]),
-            subgroup_size=int(points.n[i]), direction=DIRECTIONS[direction],
-            limits_version=self.tags.limits_version, units=self.tags.settings[t].units,
-        )  # fmt: skip
+            rule_names = (name,) * 2
+        names = self.tags.names
+        units = self.tags.units
+        centres = self.tags.centres
+        version = self.tags.limits_version
+        return [
+            Event(names[t], name, rule_names[r], "raise" if k != CLEAR else "clear", when, value, statistic, limit,
+                  mu, sigma, n, DIRECTIONS[d], version, units[t])  # fmt: skip
+            for t, r, k, d, when, value, statistic, limit, mu, sigma, n in zip(
+                tag.tolist(), out.rule.tolist(), out.kind.tolist(), out.direction.tolist(), ts.tolist(),
+                points.mean[out.point].tolist(), out.statistic.tolist(), out.limit.tolist(),
+                centres.mean[tag].tolist(), centres.sigma[tag].tolist(), points.n[out.point].tolist(),
+                strict=True,
+            )
+        ]
 
 
 @njit(cache=True)

@@ -43,6 +43,8 @@ _BOOLEAN_WORDS = {"true": GOOD, "false": BAD}
 _BOOLEAN_DIGITS = {"1": GOOD, "0": BAD}
 # Severity bits 31..30 of an OPC UA StatusCode, indexed by their value.
 _OPCUA_SEVERITY = np.array([GOOD, UNCERTAIN, BAD, BAD], dtype=np.uint8)
+# The classic OPC quality by low byte: below 64 bad, 64..191 uncertain, 192 and up good.
+_CLASSIC_LEVELS = np.repeat(np.array([BAD, UNCERTAIN, GOOD], dtype=np.uint8), [64, 128, 64])
 
 
 def ambiguous_integers_message(where: str) -> str:
@@ -63,11 +65,11 @@ def decode_quality(values: Any, encoding: str, where: str) -> np.ndarray:
     array = values.combine_chunks() if isinstance(values, pa.ChunkedArray) else values
     if not isinstance(array, pa.Array):
         array = pa.array(np.asarray(array))
-    if pa.types.is_string(array.type) or pa.types.is_large_string(array.type):
+    if _is_text(array.type):
         array = pc.dictionary_encode(array)
     if pa.types.is_dictionary(array.type):
         dictionary = array.dictionary
-        if pa.types.is_string(dictionary.type) or pa.types.is_large_string(dictionary.type):
+        if _is_text(dictionary.type):
             table = _decode_dictionary_text(dictionary, encoding, where)
         else:
             table = decode_quality(dictionary, encoding, where)
@@ -100,33 +102,60 @@ def _decode_numbers(array: pa.Array, encoding: str, where: str) -> np.ndarray:
         raise InputError(ambiguous_integers_message(where))
     if encoding == "word":
         raise InputError(f"{where}: the quality column holds numbers, but input.quality_encoding is word")
+    if pa.types.is_integer(array.type):
+        filled = pc.fill_null(array, 0) if array.null_count else array
+        return decode_integers(np.asarray(filled.to_numpy(zero_copy_only=False)), encoding)
     numbers = np.asarray(pc.fill_null(array.cast(pa.float64()), np.nan).to_numpy(zero_copy_only=False))
-    return decode_integers(numbers, encoding)
-
-
-def decode_integers(numbers: np.ndarray, encoding: str) -> np.ndarray:
-    """Integer codes (held as float64 so NaN can mark a gap) to levels; non-integers are INVALID."""
-    decoded = np.full(numbers.shape, INVALID, dtype=np.uint8)
-    whole = np.isfinite(numbers) & (numbers == np.floor(np.nan_to_num(numbers)))
-    if encoding == "opcua":
-        valid = whole & (numbers >= -(2.0**31)) & (numbers < 2.0**32)
-        bits = np.where(valid, numbers, 0).astype(np.int64) & 0xFFFFFFFF
-        decoded[valid] = _OPCUA_SEVERITY[(bits[valid] >> 30) & 3]
-    elif encoding == "opc_classic":
-        valid = whole & (numbers >= 0) & (numbers <= 0xFFFF)
-        low_byte = np.where(valid, numbers, 0).astype(np.int64) & 0xFF
-        levels = np.where(low_byte >= 192, GOOD, np.where(low_byte >= 64, UNCERTAIN, BAD)).astype(np.uint8)
-        decoded[valid] = levels[valid]
-    elif encoding == "bool":
-        decoded[whole & (numbers == 1)] = GOOD
-        decoded[whole & (numbers == 0)] = BAD
+    whole = np.isfinite(numbers) & (numbers == np.round(np.nan_to_num(numbers)))
+    whole &= np.abs(numbers) < 2.0**62
+    decoded = decode_integers(np.where(whole, numbers, 0).astype(np.int64), encoding)
+    decoded[~whole] = INVALID
     return decoded
 
 
-def _decode_text(text: str | None, encoding: str, where: str) -> np.uint8:
+def decode_integers(numbers: np.ndarray, encoding: str) -> np.ndarray:
+    """Integer codes (any numpy integer type) to levels; codes outside the encoding's range are INVALID.
+
+    Works in the column's own integer type where it can, so a 32-bit column costs no widened copy.
+    """
+    if encoding == "opcua":
+        if numbers.dtype in (np.dtype(np.int32), np.dtype(np.uint32)):
+            # A signed 32-bit column holds the same bits as the UInt32 StatusCode.
+            return _OPCUA_SEVERITY[numbers.view(np.uint32) >> 30]
+        wide = numbers.astype(np.int64)
+        decoded = _OPCUA_SEVERITY[((wide & 0xFFFFFFFF) >> 30)]
+        valid = (wide >= -(2**31)) & (wide < 2**32)
+    elif encoding == "opc_classic":
+        decoded = _CLASSIC_LEVELS[numbers & 0xFF]
+        valid = numbers <= 0xFFFF
+        if numbers.dtype.kind == "i":
+            valid &= numbers >= 0
+    elif encoding == "bool":
+        decoded = np.where(numbers == 1, GOOD, BAD).astype(np.uint8)
+        valid = (numbers == 0) | (numbers == 1)
+    else:
+        raise ValueError(f"no integer codes in the {encoding} encoding")
+    if not valid.all():
+        decoded[~valid] = INVALID
+    return decoded
+
+
+def _is_text(kind: pa.DataType) -> bool:
+    # Binary too: the file reader keeps text columns as bytes so that a file not in UTF-8 still reads.
+    return bool(
+        pa.types.is_string(kind)
+        or pa.types.is_large_string(kind)
+        or pa.types.is_binary(kind)
+        or pa.types.is_large_binary(kind)
+    )
+
+
+def _decode_text(text: str | bytes | None, encoding: str, where: str) -> np.uint8:
     """One distinct quality text to its level; called once per dictionary entry, not per row."""
     if text is None:
         return INVALID
+    if isinstance(text, bytes):
+        text = text.decode("latin-1")  # the codes are ASCII; anything else is INVALID anyway
     word = text.strip().lower()
     if encoding == "word":
         return _WORDS.get(word, INVALID)
@@ -137,9 +166,9 @@ def _decode_text(text: str | None, encoding: str, where: str) -> np.uint8:
         if number is not None:
             raise InputError(ambiguous_integers_message(where))
         return _WORDS.get(word, _BOOLEAN_WORDS.get(word, INVALID))
-    if number is None:
+    if number is None or not -(2**62) < number < 2**62:
         return INVALID
-    return np.uint8(decode_integers(np.array([float(number)]), encoding)[0])
+    return np.uint8(decode_integers(np.array([number], dtype=np.int64), encoding)[0])
 
 
 def _parse_integer(word: str) -> int | None:

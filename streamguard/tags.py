@@ -43,6 +43,7 @@ class TagTable:
         self.names: list[str] = []
         self.index: dict[str, int] = {}
         self.settings: list[ResolvedTag] = []
+        self.units: list[str | None] = []
         self.limit_source: list[str] = []  # "config", "limits file" or "" (none: tag is skipped)
         self.gate = GateParams()
         self.subgroup = SubgroupParams()
@@ -92,6 +93,7 @@ class TagTable:
         self.names.append(name)
         self.index[name] = i
         self.settings.append(settings)
+        self.units.append(settings.units)
         for columns in (self.gate, self.subgroup, self.centres, *self.detector_params.values()):
             columns.ensure(i + 1)
         self._fill(i, settings)

@@ -35,8 +35,6 @@ ISO_NAIVE = "iso_naive"
 _UTC_NS = pa.timestamp("ns", tz="UTC")
 _NAIVE_NS = pa.timestamp("ns")
 
-# A date first, and a zone designator after a time of day: the date's own "-01" must not read as an offset.
-_OFFSET_PATTERN = r"^\d{4}-\d{2}-\d{2}[T ]\d{2}[^+-]*(Z|[+-]\d{2}(:?\d{2})?)$"
 # Screens run before the exact casts, so a column full of junk does not fall to the halving search.
 # Each accepts a little more than pyarrow's parser does (that rest is found by the search), never less.
 _ISO_SCREEN = r"^\d{4}-\d{2}-\d{2}([T ]\d{2}(:?\d{2}(:?\d{2}([.,]\d+)?)?)?)?(Z|[+-]\d{2}(:?\d{2})?)?$"
@@ -53,10 +51,12 @@ def cast_marking_failures(text: pa.Array, target: pa.DataType, screen: str | Non
     """
     count = len(text)
     numpy_type = np.dtype(np.float64) if pa.types.is_floating(target) else np.dtype(np.int64)
-    values = np.zeros(count, dtype=numpy_type)
     failed = np.zeros(count, dtype=bool)
-    if count == 0:
-        return values, failed
+    try:  # the usual case: the bad cells are in another column
+        return _to_numpy(pc.cast(text, target), numpy_type), failed
+    except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
+        pass
+    values = np.zeros(count, dtype=numpy_type)
     if screen is not None:
         passes = pc.fill_null(pc.match_substring_regex(text, screen), True)
         failed |= ~passes.to_numpy(zero_copy_only=False)
@@ -87,9 +87,17 @@ def _to_numpy(array: pa.Array, numpy_type: np.dtype) -> np.ndarray:
 
 
 def has_offset(text: pa.Array) -> np.ndarray:
-    """True where an ISO timestamp ends in a zone designator (``Z``, ``+02:00``, ``-0500``, ``+02``)."""
-    matches = pc.match_substring_regex(text, _OFFSET_PATTERN)
-    return np.asarray(pc.fill_null(matches, False).to_numpy(zero_copy_only=False), dtype=bool)
+    """True where an ISO timestamp carries a zone designator (``Z``, ``+02:00``, ``-0500``, ``+02``).
+
+    A sign after the ten characters of the date can only start an offset; literal searches are used
+    because they run several times faster than a regular expression over millions of cells.
+    """
+    time_of_day = pc.utf8_slice_codeunits(text, 10)
+    marked = pc.or_(
+        pc.ends_with(text, "Z"),
+        pc.or_(pc.match_substring(time_of_day, "+"), pc.match_substring(time_of_day, "-")),
+    )
+    return np.asarray(pc.fill_null(marked, False).to_numpy(zero_copy_only=False), dtype=bool)
 
 
 def parse_iso(text: pa.Array) -> tuple[np.ndarray, np.ndarray]:
@@ -99,7 +107,15 @@ def parse_iso(text: pa.Array) -> tuple[np.ndarray, np.ndarray]:
     """
     text = _as_string(text)
     ns = np.zeros(len(text), dtype=np.int64)
-    bad = ~_present(text)
+    present = _present(text)
+    bad = ~present
+    if bad.any():
+        text = pc.if_else(pa.array(present), text, pa.scalar(None, text.type))
+    for target in (_UTC_NS, _NAIVE_NS):  # most columns are all one or the other, and clean
+        try:
+            return _to_numpy(pc.cast(text, target), np.dtype(np.int64)), bad
+        except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
+            pass
     offset = has_offset(text)
     for mask, target in ((offset, _UTC_NS), (~offset, _NAIVE_NS)):
         rows = np.flatnonzero(mask & ~bad)

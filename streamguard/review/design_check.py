@@ -1,12 +1,14 @@
 """Observed raises per tag set beside what the detector's design promised for an in-control process.
 
-The run-length engine (``streamguard.design``) gives each detector's in-control average run length
-(ARL) in charted points; times the tag's point period it is the designed interval between false
-alarms. A tag that raised far more often than that is not in control as the design assumed (a real
-change, autocorrelation, a sigma estimated too small); one that never raised in far more than its
-designed interval may have limits estimated too wide. The flag uses the Poisson tail of the number of
-raises expected from the design over the points charted: below ``alpha`` on either side disagrees.
-Raises are counted after the alarm hysteresis (``clear_after``), so a long real change is one raise.
+The designed interval between false alarms is the detector's in-control average run length (ARL, in
+charted points) times the time one point takes; ``streamguard.expected_rates`` computes both (the
+run-length engine for Shewhart, CUSUM and EWMA, normal theory for the spread chart), and this module
+uses it for every monitored tag, whether its limits come from the limits file or from the config. A
+tag that raised far more often than designed is not in control as the design assumed (a real change,
+autocorrelation, a sigma estimated too small); one that stayed silent through far more than its
+designed interval may have limits estimated too wide. The flag is the Poisson tail of the raises
+expected over the tag's span, on either side, below ``alpha``. Raises are counted after the alarm
+hysteresis (``clear_after``), so a long real change is one raise.
 """
 
 from __future__ import annotations
@@ -21,6 +23,7 @@ from ..errors import StreamguardError
 from ..pipeline import Pipeline
 
 DAY_NS = 86400 * 10**9
+FLAG_P_VALUE = 1e-3  # the same threshold as ``expected_rates``: far outside the design on either side
 
 
 @dataclass(frozen=True)
@@ -30,7 +33,7 @@ class DesignRow:
     points: int
     span_ns: int
     raises: int
-    arl_points: float | None  # None: no run-length engine, or none for this detector
+    arl_points: float | None  # None: the run-length engine is not available
     point_period_ns: float | None
     flag: str  # "", "more than designed", "fewer than designed"
 
@@ -46,7 +49,8 @@ class DesignRow:
 
     @property
     def expected_raises(self) -> float | None:
-        return self.points / self.arl_points if self.arl_points else None
+        interval = self.designed_interval_ns
+        return self.span_ns / interval if interval else None
 
     def to_dict(self) -> dict[str, Any]:
         interval = self.designed_interval_ns
@@ -59,29 +63,47 @@ class DesignRow:
         }  # fmt: skip
 
 
-ArlFunction = Callable[..., float]
+ArlOf = Callable[[str, Any, float], float]
 
 
-def _engine() -> tuple[ArlFunction | None, tuple[str, ...]]:
-    """The run-length engine's ARL function and the detectors it covers, or nothing if it is absent."""
+def _arl_function() -> ArlOf | None:
+    """In-control ARL of a detector setting (points), or None where the design modules are absent."""
     try:
-        from ..design import DETECTORS, arl
+        from ..design.engine import arl
+        from ..expected_rates import spread_arl
     except ImportError:
-        return None, ()
-    return arl, tuple(DETECTORS)
+        return None
+    cache: dict[tuple[Any, ...], float] = {}
+
+    def arl_of(detector: str, params: Any, subgroup_size: float) -> float:
+        data = params.model_dump(by_alias=True)
+        key = (detector, subgroup_size if detector == "spread" else 0,
+               *sorted((k, tuple(v) if isinstance(v, list | tuple) else v) for k, v in data.items()))  # fmt: skip
+        if key not in cache:
+            cache[key] = float(spread_arl(params.limit, subgroup_size) if detector == "spread" else arl(detector, data))
+        return cache[key]
+
+    return arl_of
 
 
-def _params_key(detector: str, params: Any) -> tuple[Any, ...]:
-    data = params.model_dump(by_alias=True)
-    return (detector, *sorted((k, tuple(v) if isinstance(v, list | tuple) else v) for k, v in data.items()))
+def _point_period_ns(pipeline: Pipeline, t: int, span_ns: int) -> float | None:
+    """The time one point takes: the subgroup window, or sample period x size (limits file, else observed)."""
+    settings = pipeline.tags.settings[t]
+    if settings.subgroup.window:
+        return float(settings.subgroup.window_ns)
+    found = pipeline.tags.limits.tags.get(settings.name) if pipeline.tags.limits is not None else None
+    sample_period_s = found.sample_period_s if found is not None else None
+    if sample_period_s:
+        return sample_period_s * 1e9 * settings.subgroup.count
+    samples = int(pipeline.counters.samples[t].sum())
+    return span_ns / (samples - 1) * settings.subgroup.count if samples > 1 and span_ns > 0 else None
 
 
-def design_rows(pipeline: Pipeline, alpha: float = 1e-3) -> list[DesignRow]:
-    """One row per monitored tag and detector that ran; ARLs computed once per distinct setting."""
+def design_rows(pipeline: Pipeline, alpha: float = FLAG_P_VALUE) -> list[DesignRow]:
+    """One row per monitored tag and detector that ran."""
     from scipy.stats import poisson
 
-    arl, covered = _engine()
-    cache: dict[tuple[Any, ...], float | None] = {}
+    arl_of = _arl_function()
     tags = pipeline.tags
     n = len(tags)
     counters = pipeline.counters
@@ -92,29 +114,23 @@ def design_rows(pipeline: Pipeline, alpha: float = 1e-3) -> list[DesignRow]:
             continue
         points = int(counters.points[t])
         span = max(int(last[t]) - int(first[t]), 0)
-        period = span / (points - 1) if points > 1 else None
+        period = _point_period_ns(pipeline, t, span)
+        found = tags.limits.tags.get(name) if tags.limits is not None else None
+        subgroup_size = found.subgroup_size if found is not None else float(tags.settings[t].subgroup.count)
         for detector in pipeline.detectors:
-            params = tags.settings[t].detectors[detector]
-            key = _params_key(detector, params)
-            if key not in cache:
-                cache[key] = _arl_of(arl, detector, params) if detector in covered else None
-            arl_points = cache[key]
+            arl_points = None
+            if arl_of is not None:
+                try:
+                    arl_points = arl_of(detector, tags.settings[t].detectors[detector], subgroup_size)
+                except StreamguardError:  # a setting the engine declines: "-" rather than no review
+                    arl_points = None
             raises = int(counters.raises[t, DETECTOR_NAMES.index(detector)])
-            flag = ""
-            if arl_points and points:
-                expected = points / arl_points
+            row = DesignRow(name, detector, points, span, raises, arl_points, period, "")
+            expected = row.expected_raises
+            if expected:
                 if raises > expected and poisson.sf(raises - 1, expected) < alpha:
-                    flag = "more than designed"
+                    row = DesignRow(name, detector, points, span, raises, arl_points, period, "more than designed")
                 elif raises < expected and poisson.cdf(raises, expected) < alpha:
-                    flag = "fewer than designed"
-            rows.append(DesignRow(name, detector, points, span, raises, arl_points, period, flag))
+                    row = DesignRow(name, detector, points, span, raises, arl_points, period, "fewer than designed")
+            rows.append(row)
     return rows
-
-
-def _arl_of(arl: ArlFunction | None, detector: str, params: Any) -> float | None:
-    if arl is None:
-        return None
-    try:
-        return float(arl(detector, params.model_dump(by_alias=True)))
-    except StreamguardError:  # a setting the engine declines: shown as "-" rather than stopping the review
-        return None

@@ -44,10 +44,11 @@ DETECTOR_COLOURS = {
     "quality": "#6f6a8f",  # muted violet, L* ~ 46, always with its own marker
 }
 DETECTOR_MARKERS = {"shewhart": "o", "cusum": "s", "ewma": "D", "spread": "P", "quality": "X"}
-DETECTOR_HATCHES = {"shewhart": "", "cusum": "////", "ewma": "....", "spread": "xx", "quality": "--"}
+# Hatches made of straight strokes only: dotted hatches cost a hundred times more in SVG.
+DETECTOR_HATCHES = {"shewhart": "", "cusum": "///", "ewma": "\\\\\\", "spread": "++", "quality": "--"}
 RAISE_UP, RAISE_DOWN, CLEAR_MARK = "^", "v", "d"
 
-DISPLAY_BUCKETS = 450
+DISPLAY_BUCKETS = 320
 
 
 def _style(salt: str) -> dict[str, Any]:
@@ -89,19 +90,41 @@ def _figure(salt: str, width: float, height: float, **kwargs: Any) -> Iterator[F
     matplotlib.use("Agg")
     from matplotlib.figure import Figure
 
-    with matplotlib.rc_context(_style(salt)):
+    with matplotlib.rc_context(_style(salt)):  # type: ignore[arg-type]
         yield Figure(figsize=(width, height), **kwargs)
 
 
 def to_svg(figure: Figure) -> str:
-    """The figure as an <svg> element for inlining: no XML prolog, no metadata, scalable width."""
+    """The figure as an <svg> element for inlining: no XML prolog, no metadata, scalable width, compact paths."""
     buffer = io.StringIO()
     figure.savefig(buffer, format="svg", metadata={"Date": None, "Creator": None, "Format": None, "Type": None})
     text = buffer.getvalue()
     text = text[text.index("<svg"):]
     text = re.sub(r"<metadata>.*?</metadata>\s*", "", text, flags=re.S)
     text = re.sub(r'(<svg[^>]*?) width="[^"]*pt" height="[^"]*pt"', r"\1", text, count=1)
-    return text
+    return _compact(text)
+
+
+_NUMBER = re.compile(r"-?\d+\.\d+")
+
+
+def _round(match: re.Match[str]) -> str:
+    text = f"{float(match.group()):.1f}"
+    return text[:-2] if text.endswith(".0") else text
+
+
+def _compact_path(match: re.Match[str]) -> str:
+    """A path's coordinates to 0.1 pt (a tenth of a point is far below a screen pixel), runs of line-tos merged."""
+    d = _NUMBER.sub(_round, match.group(1))
+    if not re.search(r"[CQcq]", d):  # only straight segments: after M, bare pairs are line-tos
+        d = re.sub(r"\s*\n?L ", " ", d)
+    return ' d="' + re.sub(r"\s+", " ", d).strip() + '"'
+
+
+def _compact(svg: str) -> str:
+    svg = re.sub(r' d="([^"]*)"', _compact_path, svg)
+    svg = re.sub(r' (x|y)="(-?\d+\.\d+)"', lambda m: f' {m.group(1)}="{_NUMBER.sub(_round, m.group(2))}"', svg)
+    return re.sub(r">\s+<", "><", svg)
 
 
 def envelope(x: np.ndarray, y: np.ndarray, buckets: int = DISPLAY_BUCKETS) -> tuple[np.ndarray, np.ndarray]:
@@ -130,9 +153,15 @@ def _times(ns: np.ndarray | Sequence[int]) -> np.ndarray:
 def _time_axis(ax: Axes) -> None:
     import matplotlib.dates as mdates
 
-    locator = mdates.AutoDateLocator(minticks=4, maxticks=9)
+    locator = mdates.AutoDateLocator(minticks=3, maxticks=7)
     ax.xaxis.set_major_locator(locator)
     ax.xaxis.set_major_formatter(mdates.ConciseDateFormatter(locator, show_offset=True))
+
+
+def _few_ticks(count: int) -> Any:
+    from matplotlib.ticker import MaxNLocator
+
+    return MaxNLocator(nbins=count, steps=[1, 2, 2.5, 5, 10])
 
 
 def _unit_label(what: str, units: str | None) -> str:
@@ -211,14 +240,14 @@ def design_figure(rows: Sequence[DesignRow], salt: str = "design") -> str | None
     positive = observed[observed > 0]
     floor = min(float(designed.min()), float(positive.min()) if positive.size else 1.0) / 4
     top = max(float(designed.max()), float(observed.max())) * 3
-    with _figure(salt, 6.4, 4.6) as fig:
-        ax = fig.add_axes((0.13, 0.13, 0.6, 0.78))
+    with _figure(salt, 9.6, 3.8) as fig:
+        ax = fig.add_axes((0.08, 0.14, 0.55, 0.76))
         ax.set_xscale("log")
         ax.set_yscale("log")
         line = np.array([floor, top])
         ax.plot(line, line, color=RULE, linewidth=0.9, linestyle=(0, (4, 2)), label="as designed")
         ax.axhline(floor * 1.5, color=GUIDE, linewidth=6, zorder=0)
-        ax.text(floor * 1.1, floor * 1.5, " none raised", va="center", fontsize=7, color=RULE)
+        ax.text(top / 1.1, floor * 1.5, "none raised ", va="center", ha="right", fontsize=7, color=INK)
         for detector in DETECTOR_MARKERS:
             mine = [i for i, r in enumerate(usable) if r.detector == detector]
             if not mine:
@@ -249,40 +278,55 @@ def incident_figure(scores: IncidentScores, salt: str = "incidents") -> str | No
         return None
     delays = [s.delay_ns for i in rows for s in scores.scores[i].values() if s.delay_ns is not None]
     positive = [d / 60e9 for d in delays if d > 0]
-    low = min(positive) / 2 if positive else 0.1
+    low = 10 ** np.floor(np.log10(min(positive) / 1.5)) if positive else 0.1
     high = max(positive) * 2 if positive else 10.0
-    low, high = min(low, 0.5), max(high, 10.0)
-    height = 1.1 + 0.3 * len(rows)
+    low, high = float(min(low, 0.5)), max(high, 10.0)
+    height = 1.1 + 0.42 * len(rows)
     with _figure(salt, 9.6, height) as fig:
         ax = fig.add_axes((0.22, 0.75 / height, 0.62, 1 - 1.15 / height))
         ax.set_xscale("log")
-        missed_x = high * 2.2
-        offsets = np.linspace(-0.22, 0.22, len(scores.detectors))
+        missed_x = high * 2.6
+        offsets = np.linspace(-0.3, 0.3, len(scores.detectors))
         labels = []
+        hit: dict[str, list[tuple[float, float]]] = {d: [] for d in scores.detectors}
+        missed: dict[str, list[float]] = {d: [] for d in scores.detectors}
         for y, i in enumerate(rows[::-1]):
             incident = scores.incidents[i]
             labels.append(f"{incident.tag}  {incident.label}")
             for offset, detector in zip(offsets, scores.detectors, strict=True):
                 score = scores.scores[i][detector]
-                colour = DETECTOR_COLOURS[detector]
                 if score.detected and score.delay_ns is not None:
-                    x = max(score.delay_ns / 60e9, low)
-                    ax.plot([low, x], [y + offset, y + offset], color=colour, linewidth=0.8, alpha=0.6)
-                    ax.scatter([x], [y + offset], marker=DETECTOR_MARKERS[detector], color=colour, s=28, zorder=3)
+                    hit[detector].append((max(score.delay_ns / 60e9, low), y + offset))
                 else:
-                    ax.scatter([missed_x], [y + offset], marker=DETECTOR_MARKERS[detector], s=24,
-                               facecolors="none", edgecolors=colour, linewidths=0.9, zorder=3)  # fmt: skip
+                    missed[detector].append(y)
+        for detector in scores.detectors:
+            colour, marker = DETECTOR_COLOURS[detector], DETECTOR_MARKERS[detector]
+            if hit[detector]:
+                x = np.array([h[0] for h in hit[detector]])
+                y_at = np.array([h[1] for h in hit[detector]])
+                ax.hlines(y_at, low, x, color=colour, linewidth=0.8, alpha=0.6)
+                ax.plot(x, y_at, linestyle="none", marker=marker, markersize=5.5, color=colour, zorder=3)
+            if missed[detector]:
+                column = missed_x * 1.22 ** (scores.detectors.index(detector) - (len(scores.detectors) - 1) / 2)
+                ax.plot([column] * len(missed[detector]), missed[detector], linestyle="none", marker=marker,
+                        markersize=5, markerfacecolor="white", markeredgecolor=colour, markeredgewidth=0.9,
+                        zorder=3)  # fmt: skip
         ax.axvline(high * 1.5, color=RULE, linewidth=0.7)
         ax.text(missed_x, len(rows) - 0.35, "missed", ha="center", fontsize=7.5, color=INK)
         ax.set_yticks(range(len(rows)), labels)
         ax.set_ylim(-0.6, len(rows) - 0.2)
-        ax.set_xlim(low, high * 3.2)
+        ax.set_xlim(low / 1.6, high * 4.5)
+        from matplotlib.ticker import FuncFormatter
+
+        ax.xaxis.set_major_formatter(FuncFormatter(lambda value, _position: f"{value:g}"))
         ax.grid(axis="x", visible=True)
         ax.grid(axis="y", visible=False)
-        ax.set_xlabel("delay from onset to first raise [minutes]")
+        ax.set_xlabel(f"delay from onset to first raise [minutes; {low:g} or less drawn at {low:g}]")
         ax.set_title("Detection delay per incident")
-        handles = [ax.scatter([], [], marker=DETECTOR_MARKERS[d], color=DETECTOR_COLOURS[d], s=28, label=d)
-                   for d in scores.detectors]  # fmt: skip
+        from matplotlib.lines import Line2D
+
+        handles = [Line2D([], [], linestyle="none", marker=DETECTOR_MARKERS[d], color=DETECTOR_COLOURS[d],
+                          markersize=5.5, label=d) for d in scores.detectors]  # fmt: skip
         ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.01, 1.0))
         return to_svg(fig)
 
@@ -346,14 +390,18 @@ def _values_panel(ax: Axes, trace: TagTrace, lo: int, hi: int, intervals: Sequen
     ax.plot(_times(x), y, color=INK, linewidth=0.55, alpha=0.75, zorder=2)
 
     points = _in_window(trace.point_ts, lo, hi)
-    p_ts, p_mean, p_n = trace.point_ts[points], trace.point_mean[points], trace.point_n[points]
+    p_ts, p_n = trace.point_ts[points], trace.point_n[points]
+    p_value = trace.point_charted[points]
     grouped = bool(p_n.size and p_n.max() > 1)
-    if grouped:
-        px, py = envelope(p_ts, p_mean)
+    if grouped or trace.phi:
+        px, py = envelope(p_ts, p_value)
         ax.plot(_times(px), py, color=DETECTOR_COLOURS["shewhart"], linewidth=1.1, zorder=3)
     ax.axhline(trace.centre, color=RULE, linewidth=0.9, zorder=1)
     if trace.shewhart_limit is not None and p_ts.size:
-        half = trace.shewhart_limit * trace.sigma / np.sqrt(np.maximum(p_n, 1))
+        if trace.phi:  # ar1 tags chart one-step residuals: the limits are on centre + residual
+            half = np.full(p_ts.shape[0], trace.shewhart_limit * trace.chart_sigma)
+        else:
+            half = trace.shewhart_limit * trace.sigma / np.sqrt(np.maximum(p_n, 1))
         lx, ly = envelope(p_ts, half)
         for sign in (1, -1):
             ax.step(_times(lx), trace.centre + sign * ly, where="pre", color=DETECTOR_COLOURS["shewhart"],
@@ -373,27 +421,18 @@ def _values_panel(ax: Axes, trace: TagTrace, lo: int, hi: int, intervals: Sequen
             keep = np.linspace(0, ex_ts.shape[0] - 1, 600).astype(np.int64)
             ex_ts, ex_value = ex_ts[keep], ex_value[keep]
         on_scale = np.isfinite(ex_value) & (ex_value >= bottom) & (ex_value <= top)
-        ax.scatter(_times(ex_ts[on_scale]), ex_value[on_scale], marker="x", s=14, color=EXCLUDED, linewidths=0.8,
-                   zorder=4)  # fmt: skip
+        ax.plot(_times(ex_ts[on_scale]), ex_value[on_scale], linestyle="none", marker="x", markersize=4,
+                color=EXCLUDED, markeredgewidth=0.8, zorder=4)  # fmt: skip
         high = ~on_scale & (np.nan_to_num(ex_value, nan=-np.inf) > top)
         low = ~on_scale & ~high
         edge = (top - bottom) * 0.03
-        ax.scatter(_times(ex_ts[high]), np.full(int(high.sum()), top - edge), marker=6, s=22, color=EXCLUDED, zorder=4)
-        ax.scatter(_times(ex_ts[low]), np.full(int(low.sum()), bottom + edge), marker=7, s=22, color=EXCLUDED,
-                   zorder=4)  # fmt: skip
-    for detector, start, end, direction in intervals:
-        for moment, kind in ((start, "raise"), (end, "clear")):
-            if moment < 0 or not (lo <= moment <= hi):
-                continue
-            j = int(np.searchsorted(trace.point_ts, moment))
-            if j >= trace.point_ts.shape[0] or trace.point_ts[j] != moment:
-                continue
-            value = float(np.clip(trace.point_mean[j], bottom, top))
-            marker = (RAISE_UP if direction >= 0 else RAISE_DOWN) if kind == "raise" else CLEAR_MARK
-            face = DETECTOR_COLOURS[detector] if kind == "raise" else "white"
-            ax.scatter([_times([moment])[0]], [value], marker=marker, s=44, facecolors=face,
-                       edgecolors=DETECTOR_COLOURS[detector], linewidths=1.1, zorder=6)  # fmt: skip
+        for mask, level, marker in ((high, top - edge, 6), (low, bottom + edge, 7)):
+            if mask.any():
+                ax.plot(_times(ex_ts[mask]), np.full(int(mask.sum()), level), linestyle="none", marker=marker,
+                        markersize=5, color=EXCLUDED, zorder=4)  # fmt: skip
+    _event_marks(ax, trace.point_ts, np.clip(trace.point_charted, bottom, top), lo, hi, intervals, None)
     ax.set_ylim(bottom, top)
+    ax.yaxis.set_major_locator(_few_ticks(5))
     what = "subgroup mean and samples" if grouped else "value"
     ax.set_ylabel(_unit_label(what, trace.units))
 
@@ -410,40 +449,61 @@ def _statistic_panel(ax: Axes, trace: TagTrace, detector: str, lo: int, hi: int,
     for sign in (1, -1):
         ax.plot(_times(lx), sign * ly, color=colour, linewidth=0.9, linestyle=(0, (5, 2)), zorder=2)
     ax.axhline(0.0, color=RULE, linewidth=0.8, zorder=1)
-    for name, start, end, direction in intervals:
-        if name != detector:
-            continue
-        for moment, kind in ((start, "raise"), (end, "clear")):
-            if moment < 0 or not (lo <= moment <= hi):
-                continue
-            j = int(np.searchsorted(ts, moment))
-            if j >= ts.shape[0] or ts[j] != moment:
-                continue
-            marker = (RAISE_UP if direction >= 0 else RAISE_DOWN) if kind == "raise" else CLEAR_MARK
-            ax.scatter([_times([moment])[0]], [statistic[j]], marker=marker, s=40,
-                       facecolors=colour if kind == "raise" else "white", edgecolors=colour, linewidths=1.1,
-                       zorder=5)  # fmt: skip
+    _event_marks(ax, ts, statistic, lo, hi, intervals, detector)
     bound = float(np.nanmax(np.abs(limit))) if limit.size and np.isfinite(limit).any() else 1.0
     extreme = float(np.nanmax(np.abs(statistic))) if statistic.size and np.isfinite(statistic).any() else 0.0
     span = max(bound, extreme) * 1.15
     ax.set_ylim(-span, span)
+    ax.yaxis.set_major_locator(_few_ticks(3))
     ax.set_ylabel(f"{detector.upper()}\n[std. errors]", fontsize=7.5)
+
+
+def _event_marks(ax: Axes, point_ts: np.ndarray, point_value: np.ndarray, lo: int, hi: int,
+                 intervals: Sequence[tuple[str, int, int, int]], only: str | None) -> None:  # fmt: skip
+    """Raise and clear marks at the charted points where they happened, one drawing call per kind of mark."""
+    groups: dict[tuple[str, str], list[tuple[int, float]]] = {}
+    for detector, start, end, direction in intervals:
+        if only is not None and detector != only:
+            continue
+        for moment, kind in ((start, "raise"), (end, "clear")):
+            if moment < 0 or not (lo <= moment <= hi):
+                continue
+            j = int(np.searchsorted(point_ts, moment))
+            if j >= point_ts.shape[0] or point_ts[j] != moment:
+                continue
+            marker = (RAISE_UP if direction >= 0 else RAISE_DOWN) if kind == "raise" else CLEAR_MARK
+            groups.setdefault((detector, marker), []).append((moment, float(point_value[j])))
+    for (detector, marker), marks in groups.items():
+        colour = DETECTOR_COLOURS[detector]
+        x = _times([m[0] for m in marks])
+        ax.plot(x, [m[1] for m in marks], linestyle="none", marker=marker, markersize=6.5,
+                markerfacecolor="white" if marker == CLEAR_MARK else colour, markeredgecolor=colour,
+                markeredgewidth=1.1, zorder=6)  # fmt: skip
 
 
 def _alarm_strip(ax: Axes, trace: TagTrace, lo: int, hi: int, intervals: Sequence[tuple[str, int, int, int]]) -> None:
     names = list(trace.detectors)
     for row, detector in enumerate(names):
         colour = DETECTOR_COLOURS[detector]
+        xs: list[Any] = []
+        ys: list[float] = []
+        starts = []
         for name, start, end, _direction in intervals:
             if name != detector:
                 continue
             stop = end if end >= 0 else hi
             if stop < lo or start > hi:
                 continue
-            a, b = _times([max(start, lo)])[0], _times([min(stop, hi)])[0]
-            ax.plot([a, b], [row, row], color=colour, linewidth=5.5, solid_capstyle="butt", alpha=0.85)
+            a, b = _times([max(start, lo), min(stop, hi)])
+            xs += [a, b, np.datetime64("NaT")]
+            ys += [row, row, np.nan]
             if start >= lo:
-                ax.scatter([a], [row], marker="|", s=60, color=INK, linewidths=1.2, zorder=4)
+                starts.append(a)
+        if xs:
+            ax.plot(xs, ys, color=colour, linewidth=5.5, solid_capstyle="butt", alpha=0.85)
+        if starts:
+            ax.plot(starts, [row] * len(starts), linestyle="none", marker="|", markersize=8, color=INK,
+                    markeredgewidth=1.2, zorder=4)  # fmt: skip
     ax.set_yticks(range(len(names)), names)
     ax.set_ylim(-0.7, len(names) - 0.3)
     ax.invert_yaxis()
@@ -459,7 +519,10 @@ def _episode_legend(ax: Axes, trace: TagTrace, incidents: Sequence[Incident]) ->
 
     handles: list[Any] = [Line2D([], [], color=INK, linewidth=0.8, alpha=0.8)]
     labels = ["samples used"]
-    if trace.point_n.size and trace.point_n.max() > 1:
+    if trace.phi:
+        handles.append(Line2D([], [], color=DETECTOR_COLOURS["shewhart"], linewidth=1.1))
+        labels.append(f"charted: centre + AR(1) residual (phi {trace.phi:.2f})")
+    elif trace.point_n.size and trace.point_n.max() > 1:
         handles.append(Line2D([], [], color=DETECTOR_COLOURS["shewhart"], linewidth=1.1))
         labels.append("subgroup mean")
     handles.append(Line2D([], [], color=RULE, linewidth=0.9))
@@ -478,3 +541,116 @@ def _episode_legend(ax: Axes, trace: TagTrace, incidents: Sequence[Incident]) ->
         handles.append(Patch(facecolor=INCIDENT_FILL, edgecolor=INCIDENT_EDGE))
         labels.append("known incident (line: onset)")
     return handles, labels
+
+
+# ---------------------------------------------------------------------------------------------------
+# Settings side by side
+
+# One style per setting being weighed: colour, marker and dash all differ, so the first two settings
+# stay apart in grey print and for every form of colour blindness.
+CONTENDER_STYLES = (
+    ("#173f6b", "o", "-"),
+    ("#b04a1c", "s", (0, (5, 2))),
+    ("#2b8a8a", "D", (0, (1, 1.5))),
+    ("#d6a019", "P", (0, (6, 2, 1, 2))),
+)
+
+
+def _contender_style(k: int) -> tuple[str, str, Any]:
+    return CONTENDER_STYLES[k % len(CONTENDER_STYLES)]
+
+
+def rate_comparison_figure(series: Sequence[tuple[str, int, np.ndarray]], flood_above: int, salt: str = "rates") -> str:
+    """Alarms per 10-minute window for each setting, overlaid; thinned to each display bucket's highest."""
+    with _figure(salt, 9.6, 3.0) as fig:
+        ax = fig.add_axes((0.07, 0.22, 0.9, 0.64))
+        highest = 0.0
+        for k, (label, window_start, counts) in enumerate(series):
+            colour, _marker, dash = _contender_style(k)
+            starts = window_start + np.arange(counts.shape[0], dtype=np.int64) * (10 * 60 * 10**9)
+            values = counts.astype(np.float64)
+            if values.shape[0] > 2 * DISPLAY_BUCKETS:
+                size = -(-values.shape[0] // DISPLAY_BUCKETS)
+                pad = size * DISPLAY_BUCKETS - values.shape[0]
+                values = np.concatenate([values, np.zeros(pad)]).reshape(DISPLAY_BUCKETS, size).max(axis=1)
+                starts = starts[::size][: values.shape[0]]
+                values = values[: starts.shape[0]]
+            highest = max(highest, float(values.max()) if values.size else 0.0)
+            ax.step(_times(starts), values, where="post", color=colour, linestyle=dash, linewidth=1.1, label=label)
+        ax.axhline(flood_above, color=RULE, linestyle=(0, (6, 3)), linewidth=1.0,
+                   label=f"flood: more than {flood_above}")  # fmt: skip
+        ax.set_ylim(0, max(highest, flood_above) * 1.12 + 0.5)
+        ax.set_ylabel("alarms per 10 min")
+        ax.set_title("Alarms per 10-minute window, each setting")
+        _time_axis(ax)
+        ax.legend(loc="upper left", bbox_to_anchor=(0.0, -0.16), ncol=len(series) + 1)
+        return to_svg(fig)
+
+
+def tag_comparison_figure(tags: Sequence[str], labels: Sequence[str], raises: np.ndarray, salt: str = "tags") -> str:
+    """Raises per tag (rows) for each setting (bars side by side); ``raises`` is tags x settings."""
+    n_tags, n_settings = raises.shape
+    height = 1.0 + 0.22 * n_tags * max(n_settings, 2) / 2
+    with _figure(salt, 9.6, height) as fig:
+        ax = fig.add_axes((0.16, 0.65 / height, 0.76, 1 - 1.1 / height))
+        bar = 0.8 / n_settings
+        rows = np.arange(n_tags)[::-1]
+        for k, label in enumerate(labels):
+            colour, _marker, _dash = _contender_style(k)
+            hatch = ("", "///", "\\\\\\", "++")[k % 4]
+            ax.barh(rows + 0.4 - bar * (k + 0.5), raises[:, k], height=bar * 0.92, color=colour, hatch=hatch,
+                    edgecolor="white", linewidth=0.5, label=label)  # fmt: skip
+        ax.set_yticks(rows, list(tags))
+        ax.grid(axis="y", visible=False)
+        ax.grid(axis="x", visible=True)
+        ax.set_xlabel("raises")
+        ax.set_title("Raises per tag, each setting")
+        ax.legend(loc="lower right")
+        return to_svg(fig)
+
+
+def delay_comparison_figure(incidents: Sequence[str], labels: Sequence[str], delays: Sequence[Sequence[float | None]],
+                            salt: str = "delays") -> str | None:  # fmt: skip
+    """Delay to first raise per incident (rows) and setting (marker); None is a miss, drawn at the right."""
+    found = [d / 60e9 for row in delays for d in row if d is not None and d > 0]
+    if not incidents:
+        return None
+    low = float(min(10 ** np.floor(np.log10(min(found) / 1.5)), 0.5)) if found else 0.1
+    high = max(max(found) * 2 if found else 10.0, 10.0)
+    missed_x = high * 2.6
+    height = 1.1 + 0.38 * len(incidents)
+    with _figure(salt, 9.6, height) as fig:
+        from matplotlib.ticker import FuncFormatter
+
+        ax = fig.add_axes((0.22, 0.75 / height, 0.6, 1 - 1.15 / height))
+        ax.set_xscale("log")
+        offsets = np.linspace(-0.22, 0.22, len(labels))
+        for k, label in enumerate(labels):
+            colour, marker, _dash = _contender_style(k)
+            hit_x, hit_y, miss_y = [], [], []
+            for y, row in enumerate(reversed(delays)):
+                if row[k] is None:
+                    miss_y.append(y + offsets[k])
+                else:
+                    hit_x.append(max(float(row[k] or 0.0) / 60e9, low))
+                    hit_y.append(y + offsets[k])
+            if hit_x:
+                ax.hlines(hit_y, low, hit_x, color=colour, linewidth=0.8, alpha=0.6)
+                ax.plot(hit_x, hit_y, linestyle="none", marker=marker, markersize=5.5, color=colour, label=label,
+                        zorder=3)  # fmt: skip
+            if miss_y:
+                ax.plot([missed_x] * len(miss_y), miss_y, linestyle="none", marker=marker, markersize=5,
+                        markerfacecolor="white", markeredgecolor=colour, zorder=3,
+                        label=None if hit_x else label)  # fmt: skip
+        ax.axvline(high * 1.5, color=RULE, linewidth=0.7)
+        ax.text(missed_x, len(incidents) - 0.35, "missed", ha="center", fontsize=7.5, color=INK)
+        ax.set_yticks(range(len(incidents)), list(reversed(incidents)))
+        ax.set_ylim(-0.6, len(incidents) - 0.2)
+        ax.set_xlim(low / 1.6, high * 4.5)
+        ax.xaxis.set_major_formatter(FuncFormatter(lambda value, _position: f"{value:g}"))
+        ax.grid(axis="x", visible=True)
+        ax.grid(axis="y", visible=False)
+        ax.set_xlabel("delay from onset to first raise of any detector [minutes]")
+        ax.set_title("Detection delay per incident, each setting")
+        ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0))
+        return to_svg(fig)

@@ -18,7 +18,7 @@ CSS = """
         --amber:#d6a019; --soft:#f4f1e8; }
 * { box-sizing: border-box; }
 body { margin:0; background:var(--paper); color:var(--ink);
-       font: 15px/1.5 "Source Sans 3", "Segoe UI", "DejaVu Sans", "Liberation Sans", system-ui, sans-serif; }
+       font: 15px/1.5 "Segoe UI", "DejaVu Sans", "Liberation Sans", system-ui, sans-serif; }
 .page { display:grid; grid-template-columns: 13rem minmax(0, 1fr); gap: 2.2rem; max-width: 76rem;
         margin: 0 auto; padding: 1.6rem 1.4rem 4rem; }
 nav { position:sticky; top:1rem; align-self:start; font-size:0.86rem; border-right:1px solid var(--guide);
@@ -36,7 +36,8 @@ section > h2 { font-size:1.18rem; margin:0 0 0.5rem; }
 section > h2::before { content: counter(section) " \\2014  "; color:var(--rule); font-weight:normal; }
 h3 { font-size:1rem; margin:1.4rem 0 0.4rem; }
 p.note, .note { color:#4a4a5e; font-size:0.88rem; }
-.facts { display:grid; grid-template-columns: repeat(auto-fill, minmax(11rem, 1fr)); gap:0.5rem 1rem; margin:0.6rem 0 1rem; }
+.facts { display:grid; grid-template-columns: repeat(auto-fill, minmax(11rem, 1fr)); gap:0.5rem 1rem;
+         margin:0.6rem 0 1rem; }
 .fact { background:var(--soft); padding:0.45rem 0.7rem; border-top:2px solid var(--ink); }
 .fact b { display:block; font-size:1.22rem; font-variant-numeric: tabular-nums; }
 .fact span { font-size:0.8rem; color:#4a4a5e; }
@@ -51,6 +52,9 @@ td.num, th.num { text-align:right; font-family:"DejaVu Sans Mono", "Liberation M
 .verdict.manageable::before { content:"\\25D0  "; color:var(--amber); }
 .verdict.above::before { content:"\\25B2  "; color:var(--warm); }
 .flag { font-weight:600; }
+.missed { color:#77778a; font-style:italic; }
+td:first-child { white-space:nowrap; }
+dt { font-weight:600; margin-top:0.4rem; } dd { margin-left:1.2rem; font-size:0.88rem; }
 .flag::before { content:"\\25C6  "; color:var(--warm); }
 figure { margin: 0.7rem 0 1.2rem; }
 figure svg { width:100%; height:auto; display:block; }

@@ -23,7 +23,7 @@ import numpy as np
 from ..durations import format_duration
 from ..errors import InputError
 from ..timeparse import format_time, parse_time
-from .event_arrays import DETECTORS, QUALITY, EventArrays
+from .event_arrays import DETECTORS, EventArrays
 
 COLUMNS = ("tag", "start", "end", "label")
 
@@ -129,7 +129,7 @@ class IncidentScores:
             })  # fmt: skip
         per_detector = {}
         for d in self.detectors:
-            delays = [s[d].delay_ns / 1e9 for s in self.scores if d in s and s[d].delay_ns is not None]
+            delays = [(s[d].delay_ns or 0) / 1e9 for s in self.scores if d in s and s[d].delay_ns is not None]
             per_detector[d] = {
                 "detected": sum(1 for s in self.scores if d in s and s[d].detected),
                 "incidents": sum(1 for st in self.status if st == "scored"),
@@ -162,6 +162,7 @@ def score_incidents(events: EventArrays, incidents: Sequence[Incident], detector
         windows_by_tag.setdefault(incident.tag, []).append(incident.window(data_end_ns))
 
     rows_by_tag: dict[int, np.ndarray] = {}
+    no_rows = np.empty(0, np.int64)
     opening_rows = np.flatnonzero(opening)
     if opening_rows.shape[0]:
         order = np.argsort(events.tag[opening_rows], kind="stable")
@@ -182,7 +183,7 @@ def score_incidents(events: EventArrays, incidents: Sequence[Incident], detector
             status.append("tag not monitored (no limits)")
         else:
             status.append("scored")
-        rows = rows_by_tag.get(t, np.empty(0, np.int64)) if t is not None else np.empty(0, np.int64)
+        rows = rows_by_tag.get(t, no_rows) if t is not None else no_rows
         inside = rows[(events.ts[rows] >= start) & (events.ts[rows] <= end)]
         per_detector = {}
         times = sample_times.get(incident.tag) if sample_times is not None else None
@@ -191,11 +192,11 @@ def score_incidents(events: EventArrays, incidents: Sequence[Incident], detector
             if mine.shape[0] == 0:
                 per_detector[d] = DetectorScore(False, None, None, None, 0)
                 continue
-            first = int(events.ts[mine[0]])
-            samples = None
+            first_raise = int(events.ts[mine[0]])
+            samples: int | None = None
             if times is not None:
-                samples = int(np.searchsorted(times, first, "right") - np.searchsorted(times, start, "left"))
-            per_detector[d] = DetectorScore(True, first, first - start, samples, int(mine.shape[0]))
+                samples = int(np.searchsorted(times, first_raise, "right") - np.searchsorted(times, start, "left"))
+            per_detector[d] = DetectorScore(True, first_raise, first_raise - start, samples, int(mine.shape[0]))
         scores.append(per_detector)
 
     false_alarms = {d: 0 for d in scored_detectors}

@@ -83,6 +83,9 @@ class TagTrace:
     point_ts: np.ndarray
     point_mean: np.ndarray
     point_n: np.ndarray
+    point_charted: np.ndarray  # what the detectors chart, in engineering units (centre + AR(1) residual for ar1 tags)
+    phi: float = 0.0  # AR(1) coefficient of ``model: ar1`` tags, else 0
+    chart_sigma: float = 1.0  # the sigma the detectors divide by (residual sigma for ar1 tags)
     detectors: dict[str, DetectorTrace] = field(default_factory=dict)
     shewhart_limit: float | None = None  # in standard errors of the point
 
@@ -109,8 +112,8 @@ def trace_tags(config: Config, limits: LimitsFile | None, samples: dict[str, Tag
     pipeline._gate(batch, reason, restart)
     points = form_points(batch.tag, batch.ts, batch.value, reason, restart, pipeline.tags.subgroup,
                          pipeline.subgroup_state, pipeline.tags.all_individuals)  # fmt: skip
-    z = pipeline.standardize(points)
-    outputs = {name: pipeline.run_detector(name, points, z, trace=True) for name in pipeline.detectors}
+    z, charted = pipeline.standardize(points)
+    outputs = {name: pipeline.run_detector(name, points, z, charted, trace=True) for name in pipeline.detectors}
     traces = {}
     bounds = np.cumsum([0, *lengths])
     for j, name in enumerate(names):
@@ -122,6 +125,8 @@ def trace_tags(config: Config, limits: LimitsFile | None, samples: dict[str, Tag
             centre=float(pipeline.tags.centres.mean[t]), sigma=float(pipeline.tags.centres.sigma[t]),
             ts=batch.ts[lo:hi], value=batch.value[lo:hi], reason=reason[lo:hi],
             point_ts=points.ts[mine], point_mean=points.mean[mine], point_n=points.n[mine],
+            point_charted=charted[mine], phi=float(pipeline.tags.centres.phi[t]),
+            chart_sigma=float(pipeline.tags.centres.chart_sigma[t]),
         )  # fmt: skip
         for detector, out in outputs.items():
             trace.detectors[detector] = DetectorTrace(out.trace_statistic[mine], out.trace_limit[mine],

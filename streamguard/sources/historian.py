@@ -26,6 +26,7 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.csv as pa_csv
+import pyarrow.dataset as pa_dataset
 import pyarrow.parquet as pq
 
 from streamguard import timestamps
@@ -48,6 +49,8 @@ QUALITY_SUFFIX = ".quality"
 # overhead vanishes, small enough that memory stays bounded whatever the file size.
 PIECE_BYTES = 64 << 20
 PARSER_BLOCK_BYTES = 4 << 20
+# Smaller for compressed files, so that parsing starts while the rest is still being decompressed.
+COMPRESSED_PIECE_BYTES = 16 << 20
 PARQUET_BATCH_ROWS = 1 << 20
 # Pieces parsed ahead of the consumer, in a background thread (memory: about two pieces more).
 READ_AHEAD_PIECES = 1
@@ -376,7 +379,7 @@ class _Columns:
             value = scalar.as_py()
         except (ValueError, OverflowError):
             return str(scalar)
-        return "" if value is None else str(value)
+        return _tag_name(value) if isinstance(value, bytes | None) else str(value)
 
 
 _TIME_WORDS = {
@@ -419,10 +422,10 @@ def _tags_of(columns: _Columns) -> tuple[list[str], np.ndarray, np.ndarray]:
     """The tag column as (names, int32 codes, missing mask); empty names count as missing."""
     array = columns.array(columns.layout.tag)
     if not pa.types.is_dictionary(array.type):
-        if not (pa.types.is_string(array.type) or pa.types.is_large_string(array.type)):
+        if not _is_text(array.type):
             array = array.cast(pa.string())
         array = pc.dictionary_encode(array)
-    names = [str(name) if name is not None else "" for name in array.dictionary.to_pylist()]
+    names = [_tag_name(name) for name in array.dictionary.to_pylist()]
     indices = array.indices if pa.types.is_int32(array.indices.type) else array.indices.cast(pa.int32())
     codes = _filled_numpy(indices, -1)
     missing = _null_mask(array)
@@ -430,6 +433,30 @@ def _tags_of(columns: _Columns) -> tuple[list[str], np.ndarray, np.ndarray]:
         if name == "":
             missing |= codes == index
     return names, codes, missing
+
+
+def _is_text(kind: pa.DataType) -> bool:
+    return bool(
+        pa.types.is_string(kind)
+        or pa.types.is_large_string(kind)
+        or pa.types.is_binary(kind)
+        or pa.types.is_large_binary(kind)
+    )
+
+
+def _tag_name(raw: str | bytes | None) -> str:
+    """A tag name as text. CSV tag columns are read as bytes, so that an export in a Windows code page
+    (a degree sign, an umlaut) reads instead of failing: UTF-8 is tried first, then cp1252, then latin-1."""
+    if raw is None:
+        return ""
+    if isinstance(raw, str):
+        return raw
+    for codec in ("utf-8", "cp1252"):
+        try:
+            return raw.decode(codec)
+        except UnicodeDecodeError:
+            continue
+    return raw.decode("latin-1")
 
 
 def _null_mask(array: pa.Array) -> np.ndarray:
@@ -452,8 +479,8 @@ def _empty_mask(array: pa.Array) -> np.ndarray:
         positions = np.asarray(pc.fill_null(array.indices, 0).to_numpy(zero_copy_only=False), dtype=np.int64)
         empty = empty_entries[positions] if len(empty_entries) else np.ones(len(array), dtype=bool)
         return empty | _null_mask(array)
-    if pa.types.is_string(array.type) or pa.types.is_large_string(array.type):
-        lengths = pc.fill_null(pc.utf8_length(array), 0).to_numpy(zero_copy_only=False)
+    if _is_text(array.type):
+        lengths = pc.fill_null(pc.binary_length(array), 0).to_numpy(zero_copy_only=False)
         return np.asarray(lengths == 0, dtype=bool)
     return _null_mask(array)
 
@@ -640,7 +667,10 @@ class _CsvFile:
         body = head[len(header_line) :]
         if not whole:
             body = body[: body.rfind(b"\n") + 1]
-        sample = self._read_text(pa.py_buffer(body), use_threads=False)[0] if body.strip() else None
+        try:
+            sample = self._read_text(pa.py_buffer(body), use_threads=False)[0] if body.strip() else None
+        except pa.ArrowInvalid as error:
+            raise InputError(f"{self.where}: cannot parse the first lines: {error}") from error
         times = sample.column(self.layout.timestamp).combine_chunks() if sample else pa.array([], pa.string())
         self.time_kind = timestamps.detect_kind(times, settings.timestamp_format, self.where)
         self.epoch_checked = settings.timestamp_format == "auto"
@@ -653,9 +683,12 @@ class _CsvFile:
         value_type = pa.float64()
         self.typed_types = {name: value_type for name in self.layout.columns}
         self.typed_types[self.layout.timestamp] = timestamps.arrow_type_for(self.time_kind)
-        for name in (self.layout.tag, self.layout.quality, *self.layout.tag_qualities):
-            if name:
-                self.typed_types[name] = pa.dictionary(pa.int32(), pa.string())
+        for name in self._byte_columns():
+            self.typed_types[name] = pa.dictionary(pa.int32(), pa.binary())
+
+    def _byte_columns(self) -> list[str]:
+        """Text columns read as bytes (see ``_tag_name``): tags and quality codes."""
+        return [name for name in (self.layout.tag, self.layout.quality, *self.layout.tag_qualities) if name]
 
     def place(self, line: int) -> str:
         return f"{self.where}:{line}"
@@ -696,7 +729,9 @@ class _CsvFile:
             ),
             convert_options=pa_csv.ConvertOptions(
                 include_columns=self.layout.columns,
-                column_types={name: pa.string() for name in self.layout.columns},
+                column_types={
+                    name: pa.binary() if name in self._byte_columns() else pa.string() for name in self.layout.columns
+                },
                 strings_can_be_null=False,
             ),
         )
@@ -776,8 +811,8 @@ class _CsvFile:
         try:
             if _compression(self.path) is None:
                 yield from self._mapped_pieces()
-            else:
-                yield from self._streamed_pieces()
+            else:  # decompression runs a piece ahead, beside the parse of the piece before
+                yield from _read_ahead(self._streamed_pieces, 1)
         except (OSError, pa.ArrowException) as error:
             raise InputError(f"{self.where}: cannot read: {error}") from error
 
@@ -805,7 +840,7 @@ class _CsvFile:
             carry = b""
             header_skipped = False
             while True:
-                block = stream.read(PIECE_BYTES)
+                block = stream.read(COMPRESSED_PIECE_BYTES)
                 data = carry + block if carry else block
                 cut = len(data) if not block else data.rfind(b"\n") + 1
                 carry = data[cut:]
@@ -842,7 +877,11 @@ def _record_first_lines(text: Any, first_line: int, records: int, quoted: bool) 
 
 
 class _ParquetFile:
-    """A Parquet file: read in record batches; a row's place is its 1-based row number."""
+    """A Parquet file, read in record batches in file order; a row's place is its 1-based row number.
+
+    pyarrow's dataset scanner reads ahead and decodes row groups and columns in parallel, which keeps
+    a streamed read as fast as reading the whole table at once.
+    """
 
     def __init__(self, path: Path, settings: InputSettings) -> None:
         self.path = path
@@ -851,14 +890,12 @@ class _ParquetFile:
         try:
             schema = pq.read_schema(path)
             self.layout = _layout_of(list(schema.names), settings, self.where)
-            dictionary_columns = [
-                name
-                for name in (self.layout.tag, self.layout.quality)
-                if name
-                and (pa.types.is_string(schema.field(name).type) or pa.types.is_large_string(schema.field(name).type))
+            text_columns = [
+                name for name in (self.layout.tag, self.layout.quality) if name and _is_text(schema.field(name).type)
             ]
-            self.file = pq.ParquetFile(path, read_dictionary=dictionary_columns)
-            sample = next(self.file.iter_batches(batch_size=4096, columns=self.layout.columns), None)
+            read_options = pa_dataset.ParquetReadOptions(dictionary_columns=text_columns)
+            self.dataset = pa_dataset.dataset(path, format=pa_dataset.ParquetFileFormat(read_options=read_options))
+            sample = next(self._batches(4096), None)
         except (OSError, pa.ArrowException) as error:
             raise InputError(f"{self.where}: cannot read as Parquet: {error}") from error
         time_type = schema.field(self.layout.timestamp).type
@@ -892,11 +929,16 @@ class _ParquetFile:
     def place(self, row: int) -> str:
         return f"{self.where}: row {row}"
 
+    def _batches(self, batch_rows: int) -> Iterator[pa.RecordBatch]:
+        return iter(self.dataset.to_batches(columns=self.layout.columns, batch_size=batch_rows, batch_readahead=2))
+
     def pieces(self, report: _Report) -> Iterator[_Piece]:
         build = _long_piece if self.layout.shape == "long" else _wide_piece
         row = 1
         try:
-            for batch in self.file.iter_batches(batch_size=PARQUET_BATCH_ROWS, columns=self.layout.columns):
+            for batch in self._batches(PARQUET_BATCH_ROWS):
+                if batch.num_rows == 0:
+                    continue
                 table = pa.Table.from_batches([batch])
                 columns = _Columns(
                     table,

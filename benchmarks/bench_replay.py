@@ -45,8 +45,8 @@ def main() -> None:
     parser.add_argument("--quick", action="store_true", help="1M rows, 3 runs")
     args = parser.parse_args()
     rows, runs = (1_000_000, 3) if args.quick else (args.rows, args.runs)
-    csv_path = DATA / f"long_{rows}_{args.tags}.csv"
-    parquet_path = DATA / f"long_{rows}_{args.tags}.parquet"
+    csv_path = DATA / f"long_{rows}x{args.tags}.csv"
+    parquet_path = DATA / f"long_{rows}x{args.tags}.parquet"
     if not csv_path.exists() or not parquet_path.exists():
         generate(rows, args.tags, csv_path, parquet_path)
     replay(csv_path)  # warm: compile caches, page cache

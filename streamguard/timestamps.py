@@ -195,8 +195,8 @@ def detect_kind(sample: pa.Array, timestamp_format: str, where: str) -> str:
     present = text.filter(pa.array(_present(text)))
     if timestamp_format == "auto" and len(present) > 0:
         numbers, _, bad = parse_numbers(present)
-        if not bad.any():
-            return epoch_unit_of(numbers, where)
+        if 2 * int(bad.sum()) < len(present):  # mostly numbers: epochs, the odd junk cell aside
+            return epoch_unit_of(numbers[~bad], where)
     if timestamp_format not in ("auto", "iso"):
         raise InputError(f"{where}: unknown timestamp format {timestamp_format!r}; use one of {TIMESTAMP_FORMATS}")
     offset = has_offset(present)
@@ -233,7 +233,7 @@ def typed_to_ns(array: pa.Array, kind: str, *, checked_range: bool = False) -> t
         return _to_numpy(array, np.dtype(np.int64)), bad
     if pa.types.is_integer(array.type) or pa.types.is_floating(array.type) or pa.types.is_decimal(array.type):
         if kind not in NS_PER_UNIT:
-            raise InputError(f"numeric timestamps need an epoch unit, not {kind!r}")
+            raise ValueError(f"numeric timestamps need an epoch unit, not {kind!r}")
         ns, out_of_range = epoch_to_ns(
             _to_numpy(array.cast(pa.float64()), np.dtype(np.float64)), kind, checked_range=checked_range
         )

@@ -7,6 +7,7 @@ the files are small and generated in each test.
 from __future__ import annotations
 
 import gzip
+import threading
 from datetime import UTC, datetime
 from pathlib import Path
 
@@ -103,8 +104,10 @@ def test_long_csv_round_trip(tmp_path: Path) -> None:
 def test_gzip_reads_like_plain(tmp_path: Path) -> None:
     """A .csv.gz is decompressed by its extension and reads to the same samples."""
     text, expected = long_text(200, seed=2)
-    got, _ = read([write(tmp_path, "day.csv.gz", text)])
+    path = write(tmp_path, "day.csv.gz", text)
+    got, _ = read([path])
     assert_samples(got, expected)
+    assert sum(len(chunk) for chunk in read_historian(str(path), WORDS)) == 200  # one path, not a list
 
 
 def test_no_quality_column_means_good(tmp_path: Path) -> None:
@@ -311,6 +314,7 @@ def test_line_numbers_hold_across_pieces(
 ) -> None:
     """Cutting the file into many small pieces changes neither the samples nor the places."""
     monkeypatch.setattr(historian, "PIECE_BYTES", piece_bytes)
+    monkeypatch.setattr(historian, "COMPRESSED_PIECE_BYTES", piece_bytes)
     check_dirty_read(write(tmp_path, name, HEADER + "\n".join(DIRTY_ROWS) + "\n"))
 
 
@@ -460,3 +464,66 @@ def test_any_chunk_size_gives_the_same_stream(tmp_path: Path, chunk_rows: int, p
     assert_samples(got, expected)
     assert all(1 <= len(chunk) <= chunk_rows for chunk in chunks)
     assert problems.examples["bad_value"] == [f"{path}:122: value 'oops' is not a number"]
+
+
+def test_byte_order_mark_and_crlf_line_ends(tmp_path: Path) -> None:
+    """A spreadsheet export's UTF-8 byte order mark and CRLF line ends change neither names nor lines."""
+    path = tmp_path / "excel.csv"
+    path.write_bytes(b"\xef\xbb\xbftimestamp,tag,value\r\n2024-03-01T00:00:00Z,A,1\r\n2024-03-01T00:00:01Z,A,x\r\n")
+    problems = ReadProblems()
+    got, _ = read([path], problems=problems)
+    assert got["tag"] == ["A"] and got["value"].tolist() == [1.0]
+    assert problems.examples == {"bad_value": [f"{path}:3: value 'x' is not a number"]}
+
+
+def test_tag_names_in_a_windows_code_page(tmp_path: Path) -> None:
+    """Tag names written in cp1252 (a degree sign, an umlaut) read instead of failing the file."""
+    path = tmp_path / "cp1252.csv"
+    path.write_bytes("timestamp,tag,value\n2024-03-01T00:00:00Z,Tür TI-1 [°C],1\n".encode("cp1252"))
+    got, _ = read([path])
+    assert got["tag"] == ["Tür TI-1 [°C]"]
+
+
+def test_parquet_row_groups_keep_file_order_and_row_numbers(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    """Many row groups read in batches come back in file order, problems placed by row."""
+    monkeypatch.setattr(historian, "PARQUET_BATCH_ROWS", 7)
+    count = 100
+    values = [str(i) for i in range(count)]
+    values[61] = "sixty-one"
+    table = pa.table(
+        {
+            "timestamp": pa.array(np.arange(count) * 10**9 + 1_709_251_200 * 10**9, pa.timestamp("ns", tz="UTC")),
+            "tag": [f"T{i % 4}" for i in range(count)],
+            "value": values,
+        }
+    )
+    path = tmp_path / "groups.parquet"
+    pq.write_table(table, path, row_group_size=10)
+    problems = ReadProblems()
+    got, chunks = read([path], chunk_rows=5, problems=problems)
+    assert got["value"].tolist() == [float(i) for i in range(count) if i != 61]
+    assert got["tag"] == [f"T{i % 4}" for i in range(count) if i != 61]
+    assert problems.examples == {"bad_value": [f"{path}: row 62: value 'sixty-one' is not a number"]}
+    assert chunks[0].first_line == 1 and max(len(chunk) for chunk in chunks) <= 5
+
+
+def test_stopping_early_stops_the_read_ahead(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    """Leaving the loop after one chunk ends the background reader; no thread is left behind."""
+    monkeypatch.setattr(historian, "PIECE_BYTES", 200)
+    text, _ = long_text(300, seed=5)
+    stream = read_historian([write(tmp_path, "a.csv", text)], WORDS, chunk_rows=3)
+    first = next(stream)
+    assert len(first) == 3
+    stream.close()  # type: ignore[attr-defined]
+    assert not [thread for thread in threading.enumerate() if thread.name == "historian-read-ahead"]
+
+
+def test_an_error_in_a_later_file_arrives_after_the_earlier_files_chunks(tmp_path: Path) -> None:
+    """In strict mode the chunks before the bad row are delivered first, then the error."""
+    good = write(tmp_path, "good.csv", HEADER + "2024-03-01T00:00:00Z,A,1,good\n")
+    bad = write(tmp_path, "bad.csv", HEADER + "2024-03-02T00:00:00Z,A,1,good\n2024-03-02T00:00:01Z,A,?,good\n")
+    received = []
+    with pytest.raises(InputError, match=rf"^{bad}:3: value '\?' is not a number$"):
+        for chunk in read_historian([bad, good], WORDS, strict=True):
+            received.append(chunk.source)
+    assert received == [str(good)]

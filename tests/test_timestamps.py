@@ -119,6 +119,7 @@ def test_detect_kind() -> None:
     """Numbers are epochs by magnitude; ISO text is typed by whether most values carry an offset."""
     assert timestamps.detect_kind(pa.array(["1709251200", "1709251201.5"]), "auto", "f") == "epoch_s"
     assert timestamps.detect_kind(pa.array(["1709251200000", ""]), "auto", "f") == "epoch_ms"
+    assert timestamps.detect_kind(pa.array(["1709251200", "n/a", "1709251201"]), "auto", "f") == "epoch_s"
     assert timestamps.detect_kind(pa.array(["2024-03-01T00:00:00Z"]), "auto", "f") == timestamps.ISO_WITH_OFFSET
     assert timestamps.detect_kind(pa.array(["2024-03-01T00:00:00"]), "iso", "f") == timestamps.ISO_NAIVE
     assert timestamps.detect_kind(pa.array(["2024-03-01"]), "auto", "f") == timestamps.ISO_NAIVE

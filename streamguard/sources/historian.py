@@ -154,6 +154,8 @@ def read_historian(
     if chunk_rows < 1:
         raise ValueError("chunk_rows must be at least 1")
     _check_settings(settings)
+    if isinstance(paths, str | Path):  # one path, not a sequence of one-letter paths
+        paths = [paths]
     files = [_open(Path(path), settings) for path in paths]
     order = sorted(range(len(files)), key=lambda i: (files[i].first_ts is None, files[i].first_ts or 0, i))
     return _stream([files[i] for i in order], strict, ReadProblems() if problems is None else problems, chunk_rows)
@@ -895,19 +897,19 @@ class _ParquetFile:
             ]
             read_options = pa_dataset.ParquetReadOptions(dictionary_columns=text_columns)
             self.dataset = pa_dataset.dataset(path, format=pa_dataset.ParquetFileFormat(read_options=read_options))
-            sample = next(self._batches(4096), None)
+            # head() runs its scan to the end: no scanner is left half-read with threads behind it.
+            sample = self.dataset.head(4096, columns=self.layout.columns)
         except (OSError, pa.ArrowException) as error:
             raise InputError(f"{self.where}: cannot read as Parquet: {error}") from error
         time_type = schema.field(self.layout.timestamp).type
-        times = sample.column(self.layout.timestamp) if sample is not None else pa.array([], time_type)
+        times = sample.column(self.layout.timestamp).combine_chunks() if sample.num_rows else pa.array([], time_type)
         self.time_kind = self._time_kind(times)
         self.epoch_checked = settings.timestamp_format == "auto"
         ns, bad = timestamps.typed_to_ns(times, self.time_kind, checked_range=self.epoch_checked)
         self.first_ts: int | None = int(ns[~bad][0]) if (~bad).any() else None
-        if sample is not None:
-            for name in (self.layout.quality, *self.layout.tag_qualities):
-                if name:
-                    decode_quality(sample.column(name), settings.quality_encoding, self.where)
+        for name in (self.layout.quality, *self.layout.tag_qualities):
+            if name and sample.num_rows:
+                decode_quality(sample.column(name), settings.quality_encoding, self.where)
 
     def _time_kind(self, times: pa.Array) -> str:
         kind = times.type

@@ -55,21 +55,20 @@ class ShewhartParams(Columns):
 
 class ShewhartState(Columns):
     spec = {
-        "zones": (np.uint8, (4,), 0),  # last 5 points: above 2, below -2, above 1, below -1
+        # Last 5 points' zones packed in one word, a byte each: above 2, below -2, above 1, below -1.
+        "zones": (np.uint32, (), 0),
         "runs": (np.int32, (5,), 0),  # same side, trend, alternating, inside 1, outside 1
         "last_difference": (np.int8, (), 0),
         "previous": (np.float64, (), np.nan),
     }
 
 
-_ABOVE2, _BELOW2, _ABOVE1, _BELOW1 = 0, 1, 2, 3
 _SIDE, _TREND, _ALTERNATING, _INSIDE, _OUTSIDE = 0, 1, 2, 3, 4
 
 
 @njit(cache=True, inline="always")
 def _forget(t, zones, runs, last_difference, previous):
-    for j in range(4):
-        zones[t, j] = 0
+    zones[t] = 0
     for j in range(5):
         runs[t, j] = 0
     last_difference[t] = 0
@@ -105,12 +104,14 @@ def shewhart_kernel(start, tag, z, restart, limit, order, mask, run_length, zone
         x = z[i]
         if restart[i]:
             _forget(t, zones, runs, last_difference, previous)
-        zones[t, _ABOVE2] = ((zones[t, _ABOVE2] << 1) | (x > 2.0)) & 31
-        zones[t, _BELOW2] = ((zones[t, _BELOW2] << 1) | (x < -2.0)) & 31
-        zones[t, _ABOVE1] = ((zones[t, _ABOVE1] << 1) | (x > 1.0)) & 31
-        zones[t, _BELOW1] = ((zones[t, _BELOW1] << 1) | (x < -1.0)) & 31
-        side = runs[t, _SIDE]
-        runs[t, _SIDE] = (side + 1 if side > 0 else 1) if x > 0 else ((side - 1 if side < 0 else -1) if x < 0 else 0)
+        bits = (np.uint32(x > 2.0) | (np.uint32(x < -2.0) << 8)
+                | (np.uint32(x > 1.0) << 16) | (np.uint32(x < -1.0) << 24))  # fmt: skip
+        word = ((zones[t] << np.uint32(1)) & np.uint32(0x1E1E1E1E)) | bits
+        zones[t] = word
+        # Same-side run, written without branches (x's sign is a coin flip for in-control data).
+        previous_side = runs[t, _SIDE]
+        side = np.int32(x > 0.0) * (max(previous_side, 0) + 1) - np.int32(x < 0.0) * (max(-previous_side, 0) + 1)
+        runs[t, _SIDE] = side
         if mask[t] & _SEQUENCE_RULES:
             # Trend, alternation and zone-stratification runs: branchy, so kept only for tags that use them.
             if not np.isnan(previous[t]):
@@ -130,7 +131,6 @@ def shewhart_kernel(start, tag, z, restart, limit, order, mask, run_length, zone
         # A rule can only start to hold at this point if the point itself is beyond 1 sigma (or beyond the
         # rule-1 limit), extends a same-side run, or a sequence rule is in use: most in-control points skip
         # the verdicts entirely.
-        side = runs[t, _SIDE]
         up = 0
         down = 0
         if (abs(x) > 1.0 or abs(x) > limit[t] or abs(side) >= run_length[t] or abs(side) >= 9
@@ -139,8 +139,8 @@ def shewhart_kernel(start, tag, z, restart, limit, order, mask, run_length, zone
             trend = runs[t, _TREND]
             up = (
                 (x > limit[t]) * _BIT_RULE1
-                | (_POPCOUNT[zones[t, _ABOVE2] & 7] >= 2) * _BIT_TWO_OF_THREE
-                | (_POPCOUNT[zones[t, _ABOVE1]] >= 4) * _BIT_FOUR_OF_FIVE
+                | (_POPCOUNT[word & 7] >= 2) * _BIT_TWO_OF_THREE
+                | (_POPCOUNT[(word >> 16) & 31] >= 4) * _BIT_FOUR_OF_FIVE
                 | (side >= run_length[t]) * (1 << WE4)
                 | (side >= 9) * (1 << N2)
                 | (trend >= 5) * (1 << N3)
@@ -150,8 +150,8 @@ def shewhart_kernel(start, tag, z, restart, limit, order, mask, run_length, zone
             )
             down = (
                 (x < -limit[t]) * _BIT_RULE1
-                | (_POPCOUNT[zones[t, _BELOW2] & 7] >= 2) * _BIT_TWO_OF_THREE
-                | (_POPCOUNT[zones[t, _BELOW1]] >= 4) * _BIT_FOUR_OF_FIVE
+                | (_POPCOUNT[(word >> 8) & 7] >= 2) * _BIT_TWO_OF_THREE
+                | (_POPCOUNT[(word >> 24) & 31] >= 4) * _BIT_FOUR_OF_FIVE
                 | (side <= -run_length[t]) * (1 << WE4)
                 | (side <= -9) * (1 << N2)
                 | (trend <= -5) * (1 << N3)

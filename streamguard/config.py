@@ -187,12 +187,39 @@ class Alarms(_Strict):
     clear_after: int = Field(5, ge=1)
 
 
+class Pair(_Strict):
+    """Two tags that measure the same thing; their difference a - (scale * b + offset) is charted as a
+    derived tag named by the pair's key, with its own baseline and detectors from ``tags:``."""
+
+    a: str
+    b: str
+    scale: float = 1.0
+    offset: float = 0.0
+    tolerance: str = "5s"
+    window: str = "1h"
+    threshold: float = Field(gt=0, description="practical bias, engineering units")
+    confidence: float = Field(0.95, gt=0.5, lt=1)
+
+    @field_validator("tolerance", "window")
+    @classmethod
+    def _duration(cls, value: str) -> str:
+        parse_duration(value)
+        return value
+
+    @model_validator(mode="after")
+    def _two_tags(self) -> Pair:
+        if self.a == self.b:
+            raise ValueError("a and b must be different tags")
+        return self
+
+
 class Config(_Strict):
     input: InputConfig = InputConfig()
     subgroup: Subgroup = Subgroup(size=1)
     detectors: Detectors = Field(default_factory=default_detectors)
     alarms: Alarms = Alarms()
     tags: dict[str, TagSettings] = Field(default_factory=dict)
+    pairs: dict[str, Pair] = Field(default_factory=dict)
     # The live service's sections (streamguard/service_config.py); replay and baseline ignore them.
     source: SourceSection | None = None
     output: OutputSection | None = None
@@ -203,6 +230,15 @@ class Config(_Strict):
     def _detectors_listed(self) -> Config:
         if not self.detectors.enabled():
             raise ValueError("detectors: list at least one of " + ", ".join(DETECTOR_NAMES))
+        members: dict[str, str] = {}
+        for name, pair in self.pairs.items():
+            for member in (pair.a, pair.b):
+                if member in members:
+                    raise ValueError(f"pairs.{name}: {member} is already a member of pair {members[member]}")
+                members[member] = name
+        for name in self.pairs:
+            if name in members:
+                raise ValueError(f"pairs.{name}: a pair's name names its difference and must not be a member tag")
         return self
 
 

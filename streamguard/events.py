@@ -14,7 +14,7 @@ from typing import Any, NamedTuple
 
 from .timeparse import format_time
 
-DETECTOR_ORDER = {"quality": 0, "shewhart": 1, "cusum": 2, "ewma": 3, "spread": 4}
+DETECTOR_ORDER = {"quality": 0, "shewhart": 1, "cusum": 2, "ewma": 3, "spread": 4, "pair": 5}
 KIND_ORDER = {"gap": 0, "range_end": 1, "stale_end": 2, "range": 3, "stale": 4, "raise": 5, "clear": 6}
 
 
@@ -45,6 +45,7 @@ class Event(NamedTuple):
     direction: str  # up, down, none
     limits_version: str
     units: str | None = None
+    note: str | None = None
 
     @property
     def id(self) -> str:
@@ -70,6 +71,7 @@ class Event(NamedTuple):
             "direction": self.direction,
             "limits_version": self.limits_version,
             "units": self.units,
+            "note": self.note,
         }
 
 

@@ -22,13 +22,13 @@ import numpy as np
 
 from . import __version__
 from .config import BaselineWindow, Config, config_fingerprint
-from .gate import REASONS, GateState, gate_kernel
+from .gate import REASONS
 from .limits import EstimationPass, InputFile, LimitsFile, TagLimits, file_sha256, limits_version
+from .pipeline import Pipeline
 from .progress import Progress
 from .sources.historian import ReadProblems, read_historian
-from .subgroup import SubgroupState, form_points
-from .tags import TagTable
 from .timeparse import format_time
+from .types import Batch
 
 MIN_INDIVIDUALS = 100  # common practice
 MIN_SUBGROUPS = 25  # common practice
@@ -227,12 +227,15 @@ class BaselineResult:
 
 def run_baseline(config: Config, paths: Sequence[str | Path], *, robust: bool = False, strict: bool = False,
                  config_path: str | None = None, show_progress: bool = False) -> BaselineResult:  # fmt: skip
-    """Read the files once; estimate every tag whose settings name a baseline window."""
+    """Read the files once; estimate every tag whose settings name a baseline window.
+
+    Samples go through the monitoring pipeline's own stages before the detectors (gate, pairs,
+    subgroups), so a baseline is built from exactly the points monitoring will chart.
+    """
     from .replay import input_settings
 
-    table = TagTable(config)
-    gate_state = GateState()
-    subgroup_state = SubgroupState()
+    pipeline = Pipeline(config, None, all_active=True)
+    table = pipeline.tags
     samples = np.zeros((0, len(REASONS)), np.int64)
     collected: dict[int, _Collected] = {}
     period: dict[int, list[np.ndarray]] = {}
@@ -245,38 +248,29 @@ def run_baseline(config: Config, paths: Sequence[str | Path], *, robust: bool = 
             index = table.lookup(chunk.names)
             n_tags = len(table)
             if window_start.shape[0] < n_tags:
+                old = window_start.shape[0]
                 window_start = np.resize(window_start, n_tags)
                 window_end = np.resize(window_end, n_tags)
-                for t in range(n_tags):
+                for t in range(old, n_tags):
                     b = table.settings[t].baseline
                     window_start[t], window_end[t] = (b.start_ns, b.end_ns) if isinstance(b, BaselineWindow) else (0, 0)
                 grown = np.zeros((n_tags, len(REASONS)), np.int64)
                 grown[: samples.shape[0]] = samples
                 samples = grown
-            gate_state.ensure(n_tags)
-            subgroup_state.ensure(n_tags)
-            tag = index[chunk.codes]
-            inside = (chunk.ts >= window_start[tag]) & (chunk.ts < window_end[tag])
-            if not inside.any():
-                progress.update(len(tag), chunk.source)
-                continue
-            tag, ts, value, quality = tag[inside], chunk.ts[inside], chunk.value[inside], chunk.quality[inside]
-            reason = np.empty(tag.shape[0], np.uint8)
-            restart = np.empty(tag.shape[0], np.bool_)
-            gp = table.gate
-            active = np.ones(gp.capacity, np.bool_)  # phase I needs no limits to gate
-            start = 0
-            while start < tag.shape[0]:
-                start, _ = gate_kernel(
-                    start, tag, ts, value, quality, gp.range_low, gp.range_high, gp.stale_after, gp.max_gap,
-                    gp.use_uncertain, active, gate_state.first_ts, gate_state.last_ts, gate_state.last_used_ts,
-                    gate_state.last_value, gate_state.same_count, gate_state.is_stale, gate_state.is_out_of_range,
-                    samples, reason, restart, np.empty(4096, np.int64), np.empty(4096, np.uint8),
-                    np.empty(4096), np.empty(4096),
-                )  # fmt: skip
-            points = form_points(tag, ts, value, reason, restart, table.subgroup, subgroup_state,
-                                 table.all_individuals)  # fmt: skip
-            order = np.argsort(points.tag, kind="stable")
+            batch = Batch.of(index[chunk.codes], chunk.ts, chunk.value, chunk.quality)
+            prepared = pipeline.prepare(batch)
+            for tag, ts, reason in prepared.samples:
+                inside = (ts >= window_start[tag]) & (ts < window_end[tag])
+                np.add.at(samples, (tag[inside], reason[inside]), 1)
+                used = inside & (reason == 0)
+                order = np.argsort(tag[used], kind="stable")
+                used_tag, used_ts = tag[used][order], ts[used][order]
+                for group in np.split(np.arange(used_tag.shape[0]), np.flatnonzero(np.diff(used_tag)) + 1):
+                    if group.size > 1:
+                        period.setdefault(int(used_tag[group[0]]), []).append(np.diff(used_ts[group]))
+            points = prepared.points
+            keep = (points.ts >= window_start[points.tag]) & (points.ts < window_end[points.tag])
+            order = np.flatnonzero(keep)[np.argsort(points.tag[keep], kind="stable")]
             bounds = np.flatnonzero(np.diff(points.tag[order])) + 1
             for group in np.split(order, bounds):
                 if group.size == 0:
@@ -288,12 +282,6 @@ def run_baseline(config: Config, paths: Sequence[str | Path], *, robust: bool = 
                 c.n.append(points.n[group])
                 c.restart.append(points.restart[group])
                 c.ts.append(points.ts[group])
-            used = reason == 0
-            order = np.argsort(tag[used], kind="stable")
-            used_tag, used_ts = tag[used][order], ts[used][order]
-            for group in np.split(np.arange(used_tag.shape[0]), np.flatnonzero(np.diff(used_tag)) + 1):
-                if group.size > 1:
-                    period.setdefault(int(used_tag[group[0]]), []).append(np.diff(used_ts[group]))
             progress.update(len(chunk.codes), chunk.source)
     finally:
         progress.close()

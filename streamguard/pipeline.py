@@ -8,6 +8,7 @@ the whole state (a handful of arrays plus the tag table) across a restart.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -20,9 +21,11 @@ from .detectors.cusum import CusumState, run_cusum
 from .detectors.ewma import EwmaState, run_ewma
 from .detectors.shewhart import ShewhartState, run_shewhart
 from .detectors.spread import SpreadState, run_spread
+from .durations import parse_duration
 from .events import DIRECTIONS, Event
 from .gate import QUALITY_KINDS, QUALITY_RULES, RANGE_START, REASONS, GateState, gate_kernel
 from .limits import LimitsFile
+from .pairs import PairParams, PairState, Windows, pair_kernel, window_statistics
 from .subgroup import Points, SubgroupState, form_points
 from .tags import TagTable
 from .types import Batch
@@ -52,6 +55,19 @@ class Counters(Columns):
     }
 
 
+@dataclass(frozen=True)
+class Prepared:
+    """What the stages before the detectors hand on: points, data-quality events, and every sample's outcome."""
+
+    points: Points
+    events: list[Event]
+    samples: list[tuple[np.ndarray, np.ndarray, np.ndarray]]  # (tag, ts, reason) per gated batch
+
+
+def astuple_points(points: Points) -> tuple[np.ndarray, ...]:
+    return (points.sample, points.tag, points.ts, points.mean, points.sd, points.n, points.restart)
+
+
 class ModelState(Columns):
     """The previous charted point per tag, for AR(1) residuals."""
 
@@ -61,9 +77,9 @@ class ModelState(Columns):
 class Pipeline:
     """Stages wired in one direction; all state lives in per-tag arrays."""
 
-    def __init__(self, config: Config, limits: LimitsFile | None = None) -> None:
+    def __init__(self, config: Config, limits: LimitsFile | None = None, *, all_active: bool = False) -> None:
         self.config = config
-        self.tags = TagTable(config, limits)
+        self.tags = TagTable(config, limits, all_active)
         self.detectors = list(self.tags.detector_params)
         self.gate_state = GateState()
         self.subgroup_state = SubgroupState()
@@ -73,6 +89,30 @@ class Pipeline:
         self.model_state = ModelState()
         self.clear_after = config.alarms.clear_after
         self.fingerprint = config_fingerprint(config)
+        self._pair_of = np.zeros(0, np.int32)
+        self._role_of = np.zeros(0, np.int32)
+        self._setup_pairs(config)
+
+    def _setup_pairs(self, config: Config) -> None:
+        """Derived tags first, so a pair's difference is charted like any tag, with its own settings."""
+        self.pair_names = list(config.pairs)
+        n = len(self.pair_names)
+        self.pair_params = PairParams(n)
+        self.pair_state = PairState(n)
+        self.pair_confidence = [config.pairs[name].confidence for name in self.pair_names]
+        self.pair_threshold = [config.pairs[name].threshold for name in self.pair_names]
+        self.pair_labels = [(config.pairs[name].a, config.pairs[name].b) for name in self.pair_names]
+        self._member_of: dict[int, tuple[int, int]] = {}
+        for p, name in enumerate(self.pair_names):
+            pair = config.pairs[name]
+            derived, a, b = self.tags.lookup([name, pair.a, pair.b]).tolist()
+            params = self.pair_params
+            params.a[p], params.b[p], params.derived[p] = a, b, derived
+            params.scale[p], params.offset[p] = pair.scale, pair.offset
+            params.tolerance[p] = parse_duration(pair.tolerance)
+            params.window[p] = parse_duration(pair.window)
+            self._member_of[a] = (p, 0)
+            self._member_of[b] = (p, 1)
 
     # -- state ---------------------------------------------------------------------------------
     def _all_state(self) -> dict[str, Columns]:
@@ -87,6 +127,12 @@ class Pipeline:
         n = len(self.tags)
         for columns in self._all_state().values():
             columns.ensure(n)
+        if self._member_of and self._pair_of.shape[0] < n:
+            self._pair_of = np.full(n, -1, np.int32)
+            self._role_of = np.zeros(n, np.int32)
+            for t, (p, role) in self._member_of.items():
+                self._pair_of[t] = p
+                self._role_of[t] = role
 
     def snapshot(self) -> dict[str, Any]:
         """The whole state as plain data: tag names and arrays (round-trips through any store)."""
@@ -95,7 +141,8 @@ class Pipeline:
             "names": list(self.tags.names),
             "config_fingerprint": self.fingerprint,
             "limits_version": self.tags.limits_version,
-            "arrays": {key: columns.to_dict(n) for key, columns in self._all_state().items()},
+            "arrays": {key: columns.to_dict(n) for key, columns in self._all_state().items()}
+            | {"pairs": self.pair_state.to_dict(len(self.pair_names))},
         }
 
     def restore(self, snapshot: dict[str, Any]) -> list[str]:
@@ -117,11 +164,28 @@ class Pipeline:
                 continue
             if same or key in ("counters", "gate"):
                 columns.load(data, n)
+        if same and "pairs" in snapshot["arrays"]:
+            self.pair_state.load(snapshot["arrays"]["pairs"], len(self.pair_names))
         return [] if same else names
 
     # -- processing ----------------------------------------------------------------------------
     def process(self, batch: Batch) -> list[Event]:
-        """Run one batch through every stage; returns its events in arrival order."""
+        """Run one batch through every stage; returns its events in time order."""
+        prepared = self.prepare(batch)
+        events = prepared.events
+        points = prepared.points
+        if len(points):
+            np.add.at(self.counters.points, points.tag, 1)
+            events.extend(self._detect(points))
+        if len(events) > 1:
+            events.sort(key=lambda e: e.ts_ns)
+        return events
+
+    def prepare(self, batch: Batch) -> Prepared:
+        """The stages before the detectors: gate, pairs (derived samples, gated too), subgroups.
+
+        Phase I uses this directly, so baselines see exactly the samples monitoring will chart.
+        """
         self._ensure()
         n = len(batch)
         reason = np.empty(n, np.uint8)
@@ -129,11 +193,63 @@ class Pipeline:
         events = self._gate(batch, reason, restart)
         points = form_points(batch.tag, batch.ts, batch.value, reason, restart, self.tags.subgroup,
                              self.subgroup_state, self.tags.all_individuals)  # fmt: skip
-        if len(points):
-            np.add.at(self.counters.points, points.tag, 1)
-            events.extend(self._detect(points))
-        if len(events) > 1:
-            events.sort(key=lambda e: e.ts_ns)
+        samples = [(batch.tag, batch.ts, reason)]
+        if self.pair_names:
+            derived, windows = self._pair(batch, reason)
+            if len(derived):
+                d_reason = np.empty(len(derived), np.uint8)
+                d_restart = np.empty(len(derived), np.bool_)
+                events.extend(self._gate(derived, d_reason, d_restart))
+                more = form_points(derived.tag, derived.ts, derived.value, d_reason, d_restart, self.tags.subgroup,
+                                   self.subgroup_state, self.tags.all_individuals)  # fmt: skip
+                points = Points(*(np.concatenate([a, b]) for a, b in zip(astuple_points(points),
+                                                                          astuple_points(more), strict=True)))
+                samples.append((derived.tag, derived.ts, d_reason))
+            events.extend(self._pair_bias(windows))
+        return Prepared(points, events, samples)
+
+    def _pair(self, batch: Batch, reason: np.ndarray) -> tuple[Batch, Windows]:
+        p, s = self.pair_params, self.pair_state
+        n = len(batch)
+        out = (np.empty(n, np.int32), np.empty(n, np.int64), np.empty(n, np.float64))
+        win = (np.empty(n, np.int64), np.empty(n, np.int64), np.empty(n, np.int64), np.empty(n), np.empty(n),
+               np.empty(n))  # fmt: skip
+        k, w = pair_kernel(
+            batch.tag, batch.ts, batch.value, reason, self._pair_of, self._role_of, p.a, p.b, p.derived, p.scale,
+            p.offset, p.tolerance, p.window, s.pending_ts, s.pending_value, s.has_pending, s.unmatched, s.matched,
+            s.window_id, s.count, s.total, s.total_sq, s.cross, s.last, *out, *win,
+        )  # fmt: skip
+        derived = Batch(out[0][:k], out[1][:k], out[2][:k], np.zeros(k, np.uint8))
+        return derived, Windows(*(a[:w] for a in win))
+
+    def _pair_bias(self, windows: Windows) -> list[Event]:
+        """Raise ``pair-bias`` when a window's interval excludes zero and the bias exceeds the threshold."""
+        events: list[Event] = []
+        for j in range(windows.pair.shape[0]):
+            p = int(windows.pair[j])
+            result = window_statistics(windows, j, self.pair_confidence[p])
+            threshold = self.pair_threshold[p]
+            biased = (result["low"] > 0 or result["high"] < 0) and abs(result["mean"]) > threshold
+            raised = bool(self.pair_state.bias_raised[p])
+            if biased == raised:
+                continue
+            self.pair_state.bias_raised[p] = biased
+            a, b = self.pair_labels[p]
+            higher, lower = (a, b) if result["mean"] > 0 else (b, a)
+            t = int(self.pair_params.derived[p])
+            note = (f"{higher} reads higher than {lower} by {abs(result['mean']):.4g} "
+                    f"({self.pair_confidence[p]:.0%} CI {result['low']:.4g} .. {result['high']:.4g}, "
+                    f"n {result['n']:.0f}, effective n {result['effective_n']:.0f}; "
+                    f"threshold {threshold:g})")  # fmt: skip
+            if not biased:
+                note = f"bias no longer both significant and above threshold: mean difference {result['mean']:.4g}"
+            events.append(Event(
+                tag=self.pair_names[p], detector="pair", rule="pair-bias", kind="raise" if biased else "clear",
+                ts_ns=int(windows.end_ts[j]), value=result["mean"], statistic=result["mean"], limit=threshold,
+                center=0.0, sigma=result["sd"], subgroup_size=int(result["n"]),
+                direction="up" if result["mean"] > 0 else "down", limits_version=self.tags.limits_version,
+                units=self.tags.units[t], note=note,
+            ))  # fmt: skip
         return events
 
     def _gate(self, batch: Batch, reason: np.ndarray, restart: np.ndarray) -> list[Event]:

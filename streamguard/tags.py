@@ -37,8 +37,9 @@ class Centres(Columns):
 class TagTable:
     """Names, indices and per-tag parameters for every stage."""
 
-    def __init__(self, config: Config, limits: LimitsFile | None = None) -> None:
+    def __init__(self, config: Config, limits: LimitsFile | None = None, all_active: bool = False) -> None:
         self.config = config
+        self.all_active = all_active  # phase I: gate every tag, none has limits yet
         self.limits = limits
         self.names: list[str] = []
         self.index: dict[str, int] = {}
@@ -120,7 +121,7 @@ class TagTable:
         self.centres.phi[i] = phi
         self.centres.chart_sigma[i] = residual_sigma
         gate = self.gate
-        gate.active[i] = bool(source)
+        gate.active[i] = bool(source) or self.all_active
         gate.range_low[i], gate.range_high[i] = s.range if s.range else (-np.inf, np.inf)
         gate.stale_after[i] = s.stale_after
         gate.max_gap[i] = s.max_gap_ns

@@ -7,6 +7,7 @@ out=${1:-out/demo}
 .venv/bin/streamguard check config/demo.yaml
 .venv/bin/streamguard baseline --config config/demo.yaml --output "$out/limits.yaml" replay_data/quillmere-day1.csv.gz
 .venv/bin/streamguard replay --config config/demo.yaml --limits "$out/limits.yaml" --out "$out" \
+  --report "$out/review.html" --incidents replay_data/incidents.csv \
   replay_data/quillmere-day1.csv.gz replay_data/quillmere-day2.csv.gz \
   replay_data/quillmere-day3.csv.gz replay_data/quillmere-day4.csv.gz
-echo "events: $out/events.jsonl   summary: $out/summary.json   injected incidents: replay_data/incidents.csv"
+echo "events: $out/events.jsonl   summary: $out/summary.json   review: $out/review.html"

@@ -11,6 +11,14 @@ if ! command -v mosquitto >/dev/null 2>&1 && [ ! -x /usr/sbin/mosquitto ]; then
     sudo apt-get update -qq && sudo DEBIAN_FRONTEND=noninteractive apt-get install -y -qq mosquitto >/dev/null
   fi
 fi
+# The report test renders the HTML once in headless Chromium; install Debian's when it is missing.
+if ! command -v chromium >/dev/null 2>&1 && [ ! -x /usr/bin/chromium ]; then
+  if [ "$(id -u)" = 0 ]; then
+    apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq chromium >/dev/null
+  else
+    sudo apt-get update -qq && sudo DEBIAN_FRONTEND=noninteractive apt-get install -y -qq chromium >/dev/null
+  fi
+fi
 .venv/bin/ruff check streamguard tests scripts benchmarks
 .venv/bin/mypy
 .venv/bin/python -m pytest -q "$@"

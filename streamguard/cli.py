@@ -18,6 +18,7 @@ from .errors import StreamguardError
 if TYPE_CHECKING:
     from .config import Config
     from .limits import LimitsFile
+    from .replay import ReplayResult
 
 # Feature modules that add their own subcommands with register(subparsers).
 _FEATURES = ("streamguard.design.commands", "streamguard.comparison.commands", "streamguard.service_commands",
@@ -93,17 +94,30 @@ def cmd_replay(args: argparse.Namespace) -> int:
         from .review import review_replay
 
         review_lines = review_replay(result, config, report_path=args.report, incidents_path=args.incidents)
-    from .expected_rates import compare_with_observed
-
-    flags = compare_with_observed(result.summary, config, limits)
+    else:
+        review_lines = _design_check_lines(result)
     events_path, summary_path = write_outputs(result, args.out)
     print(format_summary(result.summary))
-    for flag in flags:
-        print(f"far above design: {flag}")
     for line in review_lines:
         print(line)
     print(f"wrote {events_path} and {summary_path}")
     return 0
+
+
+def _design_check_lines(result: ReplayResult) -> list[str]:
+    """Raises beside the design's in-control rate, per tag and detector (summary.json: design_check)."""
+    from .review.design_check import design_rows
+
+    rows = design_rows(result.pipeline)
+    result.summary["design_check"] = [row.to_dict() for row in rows]
+    lines = []
+    for row in rows:
+        if row.flag:
+            expected = row.expected_raises
+            lines.append(f"{row.flag}: {row.tag} {row.detector}: {row.raises} raises where about "
+                         f"{expected:.2g} were designed - a real change, autocorrelation, or limits that no "
+                         "longer fit")  # fmt: skip
+    return lines
 
 
 def build_parser() -> argparse.ArgumentParser:

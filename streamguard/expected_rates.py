@@ -1,11 +1,9 @@
-"""What each tag's settings promise: the designed in-control alarm interval in time, and whether a replay
-kept that promise.
+"""What each tag's settings promise: the designed in-control alarm interval in time.
 
 A run length is counted in charted points, but a plant lives in hours: the same ARL of 370 is a false
 alarm every six minutes on a 1 Hz individuals chart and every six hours on one-minute subgroups. Here the
 run-length engine's in-control ARL is multiplied by the time one point takes (sample period x subgroup
-size, or the window), and a replay's observed raises are set beside it. A tag that raises far more often
-than designed is usually autocorrelated or has a stale baseline.
+size, or the window). ``review.design_check`` sets a replay's observed raises beside it.
 """
 
 from __future__ import annotations
@@ -22,7 +20,6 @@ from .limits import LimitsFile
 
 _D2_2 = 2.0 / math.sqrt(math.pi)
 _D3_2 = math.sqrt(2.0 - 4.0 / math.pi)
-FLAG_P_VALUE = 1e-3  # observed raises this improbable under the design are flagged
 
 
 def _freeze(params: dict[str, Any]) -> tuple[tuple[str, Any], ...]:
@@ -86,36 +83,3 @@ def designed_intervals(config: Config, limits: LimitsFile | None) -> list[dict[s
                 "interval": format_duration(interval * 1e9) if interval else "unknown (no sample period)",
             })  # fmt: skip
     return rows
-
-
-def compare_with_observed(summary: dict[str, Any], config: Config, limits: LimitsFile | None) -> list[str]:
-    """Add designed rates to a replay summary, per tag and detector, and flag tags far above them.
-
-    Raises are compared with a Poisson count at the designed rate over the tag's span; a count with
-    probability below FLAG_P_VALUE is flagged. (After a raise the alarm holds for ``clear_after`` points,
-    so the designed rate is a slight overestimate of raises: the flag errs on the quiet side.)
-    """
-    flags: list[str] = []
-    for row in designed_intervals(config, limits):
-        tag_row = summary["tags"].get(row["tag"])
-        if tag_row is None or row["interval_s"] is None:
-            continue
-        span_s = tag_row["span_days"] * 86400.0
-        expected = span_s / row["interval_s"] if row["interval_s"] else 0.0
-        observed = tag_row["raises"].get(row["detector"], 0)
-        p_value = float(stats.poisson.sf(observed - 1, expected)) if observed > 0 else 1.0
-        flagged = observed > 0 and p_value < FLAG_P_VALUE
-        tag_row.setdefault("designed", {})[row["detector"]] = {
-            "in_control_arl_points": row["arl"],
-            "designed_interval": row["interval"],
-            "designed_raises_per_day": 86400.0 / row["interval_s"],
-            "expected_raises_in_span": expected,
-            "observed_raises": observed,
-            "far_above_design": flagged,
-        }
-        if flagged:
-            flags.append(f"{row['tag']} {row['detector']}: {observed} raises where about {expected:.2g} were "
-                         f"designed (one per {row['interval']}): a real change, autocorrelation "
-                         "or a stale baseline")  # fmt: skip
-    summary["far_above_design"] = flags
-    return flags

@@ -180,7 +180,7 @@ def _standing(intervals: AlarmIntervals, names: list[str], end_ns: int,
     rows = [{
         "tag": names[int(intervals.tag[i])], "detector": DETECTORS[int(intervals.detector[i])],
         "raised": format_time(int(intervals.start[i])), "hours": (int(stop[i]) - int(intervals.start[i])) / HOUR_NS,
-        "cleared": intervals.end[i] >= 0,
+        "cleared": bool(intervals.end[i] >= 0),
     } for i in long]  # fmt: skip
     if not rows:
         return rows, 0

@@ -78,6 +78,10 @@ def run_weigh(args: argparse.Namespace) -> int:
         raise UsageError(f"--limits: give it once (for every config) or once per --config ({len(configs)}); "
                          f"got {len(args.limits)}")  # fmt: skip
     labels = _labels(configs, args.label)
+    if args.report:
+        from .figures import require_matplotlib
+
+        require_matplotlib()
     loaded_limits = [load_limits(path) for path in args.limits]
     contenders = []
     for k, (path, label) in enumerate(zip(configs, labels, strict=True)):

@@ -23,7 +23,7 @@ from ..errors import StreamguardError
 from ..pipeline import Pipeline
 
 DAY_NS = 86400 * 10**9
-FLAG_P_VALUE = 1e-3  # the same threshold as ``expected_rates``: far outside the design on either side
+FLAG_P_VALUE = 1e-3  # far outside the design on either side: a Poisson tail this improbable is flagged
 
 
 @dataclass(frozen=True)

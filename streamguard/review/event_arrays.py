@@ -12,10 +12,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..events import Event
+from ..events import DETECTOR_ORDER, Event
 
-# Detector codes: process detectors in the pipeline's order, then the quality gate.
-DETECTORS = ("shewhart", "cusum", "ewma", "spread", "quality")
+# Detector codes: every detector the events module orders (the pipeline's order), the quality gate last,
+# so a detector added there is counted here without a change.
+DETECTORS = (*sorted((d for d in DETECTOR_ORDER if d != "quality"), key=DETECTOR_ORDER.__getitem__), "quality")
 QUALITY = DETECTORS.index("quality")
 # Event kinds: a process alarm raises and clears; the quality gate's notices open (gap is a single notice).
 KINDS = ("raise", "clear", "gap", "stale", "stale_end", "range", "range_end")
@@ -54,6 +55,8 @@ class EventArrays:
         kind_code = {name: i for i, name in enumerate(KINDS)}
         direction_code = {"up": 1, "down": -1, "none": 0}
         for i, event in enumerate(events):
+            if event.detector not in detector_code:
+                raise ValueError(f"event from detector {event.detector!r}, which events.DETECTOR_ORDER does not list")
             t = index.get(event.tag)
             if t is None:
                 t = index[event.tag] = len(names)

@@ -47,6 +47,19 @@ DETECTOR_MARKERS = {"shewhart": "o", "cusum": "s", "ewma": "D", "spread": "P", "
 # Hatches made of straight strokes only: dotted hatches cost a hundred times more in SVG.
 DETECTOR_HATCHES = {"shewhart": "", "cusum": "///", "ewma": "\\\\\\", "spread": "++", "quality": "--"}
 RAISE_UP, RAISE_DOWN, CLEAR_MARK = "^", "v", "d"
+OTHER_COLOUR, OTHER_MARKER, OTHER_HATCH = "#4d4d4d", "h", "xx"  # a detector added later, until it gets its own
+
+
+def colour_of(detector: str) -> str:
+    return DETECTOR_COLOURS.get(detector, OTHER_COLOUR)
+
+
+def marker_of(detector: str) -> str:
+    return DETECTOR_MARKERS.get(detector, OTHER_MARKER)
+
+
+def hatch_of(detector: str) -> str:
+    return DETECTOR_HATCHES.get(detector, OTHER_HATCH)
 
 DISPLAY_BUCKETS = 320
 
@@ -81,6 +94,17 @@ def _style(salt: str) -> dict[str, Any]:
         "svg.hashsalt": salt,  # ids unique per figure, so several SVGs can share one page
         "path.simplify": True,
     }
+
+
+def require_matplotlib() -> None:
+    """Fail early, with the fix, where a report is asked for and matplotlib is not installed."""
+    try:
+        import matplotlib  # noqa: F401
+    except ImportError:
+        from ..errors import UsageError
+
+        raise UsageError("--report: the HTML report draws its figures with matplotlib, which is not installed "
+                         "(pip install matplotlib)") from None
 
 
 @contextmanager
@@ -187,11 +211,11 @@ def alarm_rate_figure(load: AlarmLoad, salt: str = "rate") -> str:
             y = peaks[: x.shape[0]]
         else:
             x, y = _times(starts), counts
-        ax.fill_between(x, y, step="post", color=DETECTOR_COLOURS["shewhart"], alpha=0.28, linewidth=0)
-        ax.step(x, y, where="post", color=DETECTOR_COLOURS["shewhart"], linewidth=0.9, label="alarms per 10 min"
+        ax.fill_between(x, y, step="post", color=colour_of("shewhart"), alpha=0.28, linewidth=0)
+        ax.step(x, y, where="post", color=colour_of("shewhart"), linewidth=0.9, label="alarms per 10 min"
                 + (" (highest in each display bucket)" if thinned else ""))  # fmt: skip
         flood = load.settings.flood_above
-        ax.axhline(flood, color=DETECTOR_COLOURS["cusum"], linestyle=(0, (6, 3)), linewidth=1.1,
+        ax.axhline(flood, color=colour_of("cusum"), linestyle=(0, (6, 3)), linewidth=1.1,
                    label=f"flood: more than {flood}")  # fmt: skip
         ax.axhline(load.figures["alarms_per_10_minutes"], color=INK, linestyle=(0, (1, 1.5)), linewidth=1.1,
                    label=f"average {load.figures['alarms_per_10_minutes']:.2f}")  # fmt: skip
@@ -211,12 +235,14 @@ def top_tags_figure(load: AlarmLoad, detectors: Sequence[str], salt: str = "top"
     with _figure(salt, 9.6, height) as fig:
         ax = fig.add_axes((0.16, 0.6 / height, 0.74, 1 - 1.05 / height))
         left = np.zeros(len(tags))
-        for detector in [*detectors, "quality"]:
+        from .event_arrays import DETECTORS
+
+        for detector in [*detectors, *(d for d in DETECTORS if d not in detectors)]:
             widths = np.array([load.raises_by_tag[t].get(detector, 0) for t in tags], dtype=np.float64)
             if not widths.any():
                 continue
-            ax.barh(tags, widths, left=left, height=0.62, color=DETECTOR_COLOURS[detector], alpha=0.9,
-                    hatch=DETECTOR_HATCHES[detector], edgecolor="white", linewidth=0.6, label=detector)  # fmt: skip
+            ax.barh(tags, widths, left=left, height=0.62, color=colour_of(detector), alpha=0.9,
+                    hatch=hatch_of(detector), edgecolor="white", linewidth=0.6, label=detector)  # fmt: skip
             left += widths
         for y, value in enumerate(left):
             ax.text(value, y, f"  {int(value):,}  ({100 * value / total:.0f} %)", va="center", fontsize=7.5,
@@ -226,7 +252,7 @@ def top_tags_figure(load: AlarmLoad, detectors: Sequence[str], salt: str = "top"
         ax.set_xlim(0, max(float(left.max()) if left.size else 1.0, 1.0) * 1.28)
         ax.set_xlabel("alarms (raises)")
         ax.set_title(f"The {len(tags)} most frequent tags")
-        ax.legend(loc="lower right", ncol=5)
+        ax.legend(loc="lower right", bbox_to_anchor=(1.0, 1.0), ncol=5, borderaxespad=0.2)
         return to_svg(fig)
 
 
@@ -248,18 +274,18 @@ def design_figure(rows: Sequence[DesignRow], salt: str = "design") -> str | None
         ax.plot(line, line, color=RULE, linewidth=0.9, linestyle=(0, (4, 2)), label="as designed")
         ax.axhline(floor * 1.5, color=GUIDE, linewidth=6, zorder=0)
         ax.text(top / 1.1, floor * 1.5, "none raised ", va="center", ha="right", fontsize=7, color=INK)
-        for detector in DETECTOR_MARKERS:
+        for detector in dict.fromkeys(r.detector for r in usable):
             mine = [i for i, r in enumerate(usable) if r.detector == detector]
             if not mine:
                 continue
             x = designed[mine]
             y = np.where(observed[mine] > 0, observed[mine], floor * 1.5)
             flagged = np.array([bool(usable[i].flag) for i in mine])
-            colour = DETECTOR_COLOURS[detector]
-            ax.scatter(x[~flagged], y[~flagged], marker=DETECTOR_MARKERS[detector], s=26, facecolors="none",
+            colour = colour_of(detector)
+            ax.scatter(x[~flagged], y[~flagged], marker=marker_of(detector), s=26, facecolors="none",
                        edgecolors=colour, linewidths=1.0, label=f"{detector}")  # fmt: skip
             if flagged.any():
-                ax.scatter(x[flagged], y[flagged], marker=DETECTOR_MARKERS[detector], s=30, color=colour,
+                ax.scatter(x[flagged], y[flagged], marker=marker_of(detector), s=30, color=colour,
                            label=f"{detector}, disagrees")  # fmt: skip
         ax.set_xlim(floor, top)
         ax.set_ylim(floor, top)
@@ -300,7 +326,7 @@ def incident_figure(scores: IncidentScores, salt: str = "incidents") -> str | No
                 else:
                     missed[detector].append(y)
         for detector in scores.detectors:
-            colour, marker = DETECTOR_COLOURS[detector], DETECTOR_MARKERS[detector]
+            colour, marker = colour_of(detector), marker_of(detector)
             if hit[detector]:
                 x = np.array([h[0] for h in hit[detector]])
                 y_at = np.array([h[1] for h in hit[detector]])
@@ -325,7 +351,7 @@ def incident_figure(scores: IncidentScores, salt: str = "incidents") -> str | No
         ax.set_title("Detection delay per incident")
         from matplotlib.lines import Line2D
 
-        handles = [Line2D([], [], linestyle="none", marker=DETECTOR_MARKERS[d], color=DETECTOR_COLOURS[d],
+        handles = [Line2D([], [], linestyle="none", marker=marker_of(d), color=colour_of(d),
                           markersize=5.5, label=d) for d in scores.detectors]  # fmt: skip
         ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.01, 1.0))
         return to_svg(fig)
@@ -395,7 +421,7 @@ def _values_panel(ax: Axes, trace: TagTrace, lo: int, hi: int, intervals: Sequen
     grouped = bool(p_n.size and p_n.max() > 1)
     if grouped or trace.phi:
         px, py = envelope(p_ts, p_value)
-        ax.plot(_times(px), py, color=DETECTOR_COLOURS["shewhart"], linewidth=1.1, zorder=3)
+        ax.plot(_times(px), py, color=colour_of("shewhart"), linewidth=1.1, zorder=3)
     ax.axhline(trace.centre, color=RULE, linewidth=0.9, zorder=1)
     if trace.shewhart_limit is not None and p_ts.size:
         if trace.phi:  # ar1 tags chart one-step residuals: the limits are on centre + residual
@@ -404,7 +430,7 @@ def _values_panel(ax: Axes, trace: TagTrace, lo: int, hi: int, intervals: Sequen
             half = trace.shewhart_limit * trace.sigma / np.sqrt(np.maximum(p_n, 1))
         lx, ly = envelope(p_ts, half)
         for sign in (1, -1):
-            ax.step(_times(lx), trace.centre + sign * ly, where="pre", color=DETECTOR_COLOURS["shewhart"],
+            ax.step(_times(lx), trace.centre + sign * ly, where="pre", color=colour_of("shewhart"),
                     linewidth=0.9, linestyle=(0, (5, 2)), zorder=2)  # fmt: skip
 
     finite = trace.value[used]
@@ -442,7 +468,7 @@ def _statistic_panel(ax: Axes, trace: TagTrace, detector: str, lo: int, hi: int,
     detail = trace.detectors[detector]
     points = _in_window(trace.point_ts, lo, hi)
     ts, statistic, limit = trace.point_ts[points], detail.statistic[points], detail.limit[points]
-    colour = DETECTOR_COLOURS[detector]
+    colour = colour_of(detector)
     x, y = envelope(ts, statistic)
     ax.plot(_times(x), y, color=colour, linewidth=0.95, zorder=3)
     lx, ly = envelope(ts, limit)
@@ -474,7 +500,7 @@ def _event_marks(ax: Axes, point_ts: np.ndarray, point_value: np.ndarray, lo: in
             marker = (RAISE_UP if direction >= 0 else RAISE_DOWN) if kind == "raise" else CLEAR_MARK
             groups.setdefault((detector, marker), []).append((moment, float(point_value[j])))
     for (detector, marker), marks in groups.items():
-        colour = DETECTOR_COLOURS[detector]
+        colour = colour_of(detector)
         x = _times([m[0] for m in marks])
         ax.plot(x, [m[1] for m in marks], linestyle="none", marker=marker, markersize=6.5,
                 markerfacecolor="white" if marker == CLEAR_MARK else colour, markeredgecolor=colour,
@@ -484,7 +510,7 @@ def _event_marks(ax: Axes, point_ts: np.ndarray, point_value: np.ndarray, lo: in
 def _alarm_strip(ax: Axes, trace: TagTrace, lo: int, hi: int, intervals: Sequence[tuple[str, int, int, int]]) -> None:
     names = list(trace.detectors)
     for row, detector in enumerate(names):
-        colour = DETECTOR_COLOURS[detector]
+        colour = colour_of(detector)
         xs: list[Any] = []
         ys: list[float] = []
         starts = []
@@ -520,15 +546,15 @@ def _episode_legend(ax: Axes, trace: TagTrace, incidents: Sequence[Incident]) ->
     handles: list[Any] = [Line2D([], [], color=INK, linewidth=0.8, alpha=0.8)]
     labels = ["samples used"]
     if trace.phi:
-        handles.append(Line2D([], [], color=DETECTOR_COLOURS["shewhart"], linewidth=1.1))
+        handles.append(Line2D([], [], color=colour_of("shewhart"), linewidth=1.1))
         labels.append(f"charted: centre + AR(1) residual (phi {trace.phi:.2f})")
     elif trace.point_n.size and trace.point_n.max() > 1:
-        handles.append(Line2D([], [], color=DETECTOR_COLOURS["shewhart"], linewidth=1.1))
+        handles.append(Line2D([], [], color=colour_of("shewhart"), linewidth=1.1))
         labels.append("subgroup mean")
     handles.append(Line2D([], [], color=RULE, linewidth=0.9))
     labels.append("centre line")
     if trace.shewhart_limit is not None:
-        handles.append(Line2D([], [], color=DETECTOR_COLOURS["shewhart"], linewidth=0.9, linestyle=(0, (5, 2))))
+        handles.append(Line2D([], [], color=colour_of("shewhart"), linewidth=0.9, linestyle=(0, (5, 2))))
         labels.append(f"limits (±{trace.shewhart_limit:g} std. errors) / decision limits")
     handles.append(Line2D([], [], color=EXCLUDED, marker="x", linestyle="none", markersize=5))
     labels.append("sample excluded by the gate (▲▼ off scale)")

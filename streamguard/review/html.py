@@ -44,8 +44,9 @@ p.note, .note { color:#4a4a5e; font-size:0.88rem; }
 table { border-collapse:collapse; margin:0.5rem 0 1rem; font-size:0.86rem; }
 th, td { padding:0.22rem 0.7rem 0.22rem 0; text-align:left; vertical-align:top; border-bottom:1px solid var(--guide); }
 th { border-bottom:1.5px solid var(--ink); font-weight:600; }
-td.num, th.num { text-align:right; font-family:"DejaVu Sans Mono", "Liberation Mono", Consolas, monospace;
-                 font-size:0.82rem; }
+td.num, th.num { text-align:right; font-size:0.82rem;
+                 font-family:"DejaVu Sans Mono", "Liberation Mono", Consolas, monospace; }
+td.num { white-space:nowrap; }
 .wide { overflow-x:auto; }
 .verdict { white-space:nowrap; font-weight:600; }
 .verdict.meets::before { content:"\\25CF  "; color:var(--accent); }

@@ -223,12 +223,15 @@ def describe_delay(score: DetectorScore) -> str:
     return text
 
 
-def format_incidents(scores: IncidentScores) -> list[str]:
+def format_incidents(scores: IncidentScores, max_rows: int = 40) -> list[str]:
     """The incidents table printed after the replay: one line per incident, a column per detector."""
     width = 24
     header = f"{'incident':<36} " + " ".join(f"{d:<{width}}" for d in scores.detectors)
     lines = ["incidents (delay from onset to first raise):", header, "-" * len(header)]
-    for incident, score, status in zip(scores.incidents, scores.scores, scores.status, strict=True):
+    for k, (incident, score, status) in enumerate(zip(scores.incidents, scores.scores, scores.status, strict=True)):
+        if k == max_rows:
+            lines.append(f"... {len(scores.incidents) - max_rows} more incidents in summary.json and the report")
+            break
         name = f"{incident.tag} {incident.label}"[:36]
         if status != "scored":
             lines.append(f"{name:<36} {status}")

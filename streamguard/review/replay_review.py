@@ -18,6 +18,7 @@ from ..replay import ReplayResult
 from .alarm_load import AlarmLoad, AlarmLoadSettings, alarm_load, format_alarm_load
 from .design_check import design_rows
 from .event_arrays import EventArrays, alarm_intervals
+from .figures import require_matplotlib
 from .incidents import IncidentScores, format_incidents, read_incidents, score_incidents
 from .report import ReportInputs, ReportSettings, build_report
 from .tag_traces import collect_samples, trace_tags
@@ -51,6 +52,8 @@ def review_replay(result: ReplayResult, config: Config, *, report_path: str | Pa
     tags that are drawn or scored against incidents, and only when a report or incidents are asked for.
     """
     settings = settings or ReviewSettings()
+    if report_path:
+        require_matplotlib()
     progress = sys.stderr.isatty() if show_progress is None else show_progress
     started = time.monotonic()
     incidents = read_incidents(incidents_path) if incidents_path else None

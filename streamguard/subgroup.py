@@ -128,9 +128,15 @@ def form_points(
 ) -> Points:  # fmt: skip
     """Run the subgroup stage; individuals for every tag skip the kernel entirely."""
     if all_individuals:
-        keep = np.flatnonzero(reason == 0)
+        accepted = reason == 0
+        if accepted.all():
+            # The usual case: every sample is a point; no gathering, the batch's arrays are the points.
+            n = tag.shape[0]
+            return Points(np.arange(n, dtype=np.int64), tag, ts, value, np.full(n, np.nan),
+                          np.ones(n, dtype=np.int32), restart)  # fmt: skip
+        keep = np.flatnonzero(accepted)
         return Points(
-            keep.astype(np.int64), tag[keep], ts[keep], value[keep],
+            keep, tag[keep], ts[keep], value[keep],
             np.full(keep.shape[0], np.nan), np.ones(keep.shape[0], dtype=np.int32), restart[keep],
         )  # fmt: skip
     n = tag.shape[0]

@@ -296,6 +296,8 @@ class Pipeline:
         detectors' designed run lengths hold again. Returns z and the charted values (engineering units).
         """
         centres = self.tags.centres
+        if not self.tags.any_ar1:
+            return standardize_plain(points.tag, points.mean, points.n, centres.mean, centres.sigma), points.mean
         return standardize_kernel(points.tag, points.mean, points.n, points.restart, centres.mean, centres.sigma,
                                   centres.phi, centres.chart_sigma, self.model_state.previous)  # fmt: skip
 
@@ -362,6 +364,15 @@ class Pipeline:
 
 
 @njit(cache=True)
+def standardize_plain(tag, mean, n, mu, sigma):
+    z = np.empty(tag.shape[0])
+    for i in range(tag.shape[0]):
+        t = tag[i]
+        z[i] = (mean[i] - mu[t]) / sigma[t] * np.sqrt(n[i])
+    return z
+
+
+@njit(cache=True)
 def standardize_kernel(tag, mean, n, restart, mu, sigma, phi, chart_sigma, previous):
     z = np.empty(tag.shape[0])
     charted = np.empty(tag.shape[0])
@@ -378,6 +389,6 @@ def standardize_kernel(tag, mean, n, restart, mu, sigma, phi, chart_sigma, previ
                 charted[i] = mu[t] + r
             previous[t] = x
         else:
-            z[i] = (x - mu[t]) / (sigma[t] / np.sqrt(n[i])) if n[i] != 1 else (x - mu[t]) / sigma[t]
+            z[i] = (x - mu[t]) / sigma[t] * np.sqrt(n[i])  # the same arithmetic as standardize_plain
             charted[i] = x
     return z, charted

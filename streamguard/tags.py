@@ -60,6 +60,7 @@ class TagTable:
         if "spread" in enabled:
             self.detector_params["spread"] = SpreadParams()
         self.all_individuals = True
+        self.any_ar1 = False  # some tag charts AR(1) residuals (the pipeline then keeps a previous value)
         self._given: dict[str, tuple[float, float]] = {}
         self._version: str | None = None
         self.skip_reason: dict[str, str] = {}
@@ -119,6 +120,7 @@ class TagTable:
         self.centres.mean[i] = mean
         self.centres.sigma[i] = sigma
         self.centres.phi[i] = phi
+        self.any_ar1 = self.any_ar1 or phi != 0.0
         self.centres.chart_sigma[i] = residual_sigma
         gate = self.gate
         gate.active[i] = bool(source) or self.all_active

@@ -33,7 +33,6 @@ from ..config import RULE_NAMES
 WE1, WE2, WE3, WE4 = 1, 2, 3, 4
 N1, N2, N3, N4, N5, N6, N7, N8 = 5, 6, 7, 8, 9, 10, 11, 12
 RULE_CODES = {name: i + 1 for i, name in enumerate(RULE_NAMES)}
-_POPCOUNT = np.array([bin(i).count("1") for i in range(32)], dtype=np.int8)
 
 
 def rule_order(rules: tuple[str, ...], width: int = 12) -> np.ndarray:
@@ -64,6 +63,16 @@ class ShewhartState(Columns):
 
 
 _SIDE, _TREND, _ALTERNATING, _INSIDE, _OUTSIDE = 0, 1, 2, 3, 4
+
+
+@njit(cache=True, inline="always")
+def _count3(w):
+    return (w & 1) + ((w >> 1) & 1) + ((w >> 2) & 1)
+
+
+@njit(cache=True, inline="always")
+def _count5(w):
+    return (w & 1) + ((w >> 1) & 1) + ((w >> 2) & 1) + ((w >> 3) & 1) + ((w >> 4) & 1)
 
 
 @njit(cache=True, inline="always")
@@ -139,8 +148,8 @@ def shewhart_kernel(start, tag, z, restart, limit, order, mask, run_length, zone
             trend = runs[t, _TREND]
             up = (
                 (x > limit[t]) * _BIT_RULE1
-                | (_POPCOUNT[word & 7] >= 2) * _BIT_TWO_OF_THREE
-                | (_POPCOUNT[(word >> 16) & 31] >= 4) * _BIT_FOUR_OF_FIVE
+                | (_count3(word) >= 2) * _BIT_TWO_OF_THREE
+                | (_count5(word >> 16) >= 4) * _BIT_FOUR_OF_FIVE
                 | (side >= run_length[t]) * (1 << WE4)
                 | (side >= 9) * (1 << N2)
                 | (trend >= 5) * (1 << N3)
@@ -150,8 +159,8 @@ def shewhart_kernel(start, tag, z, restart, limit, order, mask, run_length, zone
             )
             down = (
                 (x < -limit[t]) * _BIT_RULE1
-                | (_POPCOUNT[(word >> 8) & 7] >= 2) * _BIT_TWO_OF_THREE
-                | (_POPCOUNT[(word >> 24) & 31] >= 4) * _BIT_FOUR_OF_FIVE
+                | (_count3(word >> 8) >= 2) * _BIT_TWO_OF_THREE
+                | (_count5(word >> 24) >= 4) * _BIT_FOUR_OF_FIVE
                 | (side <= -run_length[t]) * (1 << WE4)
                 | (side <= -9) * (1 << N2)
                 | (trend <= -5) * (1 << N3)

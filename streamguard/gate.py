@@ -68,7 +68,7 @@ class GateState(Columns):
     }
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def gate_kernel(
     start, tag, ts, value, quality,
     range_low, range_high, stale_after, max_gap, use_uncertain, active,

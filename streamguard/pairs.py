@@ -67,7 +67,7 @@ class Windows:
     cross: np.ndarray
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def pair_kernel(tag, ts, value, reason, pair_of, role_of, a_tag, b_tag, derived, scale, offset, tolerance, window,
                 pending_ts, pending_value, has_pending, unmatched, matched, window_id, count, total, total_sq,
                 cross, last, out_tag, out_ts, out_value, win_pair, win_end, win_count, win_total, win_total_sq,

@@ -363,7 +363,7 @@ class Pipeline:
         ]
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def standardize_plain(tag, mean, n, mu, sigma):
     z = np.empty(tag.shape[0])
     for i in range(tag.shape[0]):
@@ -372,7 +372,7 @@ def standardize_plain(tag, mean, n, mu, sigma):
     return z
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def standardize_kernel(tag, mean, n, restart, mu, sigma, phi, chart_sigma, previous):
     z = np.empty(tag.shape[0])
     charted = np.empty(tag.shape[0])

@@ -53,7 +53,7 @@ class Points:
         return int(self.tag.shape[0])
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _emit(t, k, out_sample, out_tag, out_ts, out_mean, out_sd, out_n, out_restart, sample_index, ts_value,
           count, total, total_sq, pivot, restart):  # fmt: skip
     m = count[t]
@@ -75,7 +75,7 @@ def _emit(t, k, out_sample, out_tag, out_ts, out_mean, out_sd, out_n, out_restar
     restart[t] = False
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def subgroup_kernel(
     tag, ts, value, reason, restart_in,
     size, window,

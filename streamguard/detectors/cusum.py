@@ -47,7 +47,7 @@ class CusumState(Columns):
     }
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def cusum_kernel(start, tag, z, restart, k, h, headstart, upper, lower, started,
                  clear_after, alarm, ev_int, ev_float, trace, tr_int, tr_float):  # fmt: skip
     n = tag.shape[0]

@@ -44,7 +44,7 @@ class EwmaState(Columns):
     }
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def ewma_kernel(start, tag, z, restart, lam, L, exact, e, count, decay,
                 clear_after, alarm, ev_int, ev_float, trace, tr_int, tr_float):  # fmt: skip
     n = tag.shape[0]

@@ -101,7 +101,7 @@ def rule_mask(rules: tuple[str, ...]) -> int:
 _THRESHOLD = np.array([0.0, 3.0, 2.0, 1.0, 0.0, 3.0, 0.0, 0.0, 0.0, 2.0, 1.0, 1.0, 1.0])
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def shewhart_kernel(start, tag, z, restart, limit, order, mask, run_length, zones, runs, last_difference, previous,
                     clear_after, alarm, ev_int, ev_float, trace, tr_int, tr_float):  # fmt: skip
     n = tag.shape[0]

@@ -36,12 +36,12 @@ class SpreadState(Columns):
     spec = {"previous": (np.float64, (), np.nan)}
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _c4(n):
     return math.sqrt(2.0 / (n - 1.0)) * math.exp(math.lgamma(n / 2.0) - math.lgamma((n - 1.0) / 2.0))
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def spread_kernel(start, tag, mean, sd, n_in, sigma, restart, limit, previous,
                   clear_after, alarm, ev_int, ev_float, trace, tr_int, tr_float):  # fmt: skip
     n = tag.shape[0]

@@ -1,4 +1,4 @@
-"""Each detector's compiled kernel against a plain-Python transcription of its published definition,
+"""Each detector's compiled kernel against a plain-Python rendering of its published definition,
 step by step, and against worked examples."""
 
 from __future__ import annotations
@@ -83,7 +83,7 @@ def _monotone(w: list[float]) -> bool:
 
 
 def _reference_rules(z: np.ndarray, rules: list[str], limit: float = 3.0, run_length: int = 8) -> list[str]:
-    """Western Electric (1956) and Nelson (1984) rules transcribed literally over a list of points;
+    """Western Electric (1956) and Nelson (1984) rules read literally over a list of points;
     the history restarts after any signal."""
     history: list[float] = []
     fired: list[str] = []
@@ -133,7 +133,7 @@ def _reference_rules(z: np.ndarray, rules: list[str], limit: float = 3.0, run_le
     ["nelson1", "nelson2", "nelson3", "nelson4", "nelson5", "nelson6", "nelson7", "nelson8"],
     ["nelson7", "nelson4", "nelson3"],
 ])  # fmt: skip
-def test_run_rules_match_literal_transcription(rules: list[str]) -> None:
+def test_run_rules_match_literal_reading(rules: list[str]) -> None:
     """Bit-history run rules give the same verdict as the rules read literally, point by point."""
     rng = np.random.default_rng(RNG_SEED + 2)
     # A mix of in-control noise, shifts, a damped stretch and an alternating stretch exercises every rule.

@@ -36,8 +36,10 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from . import timestamps
+from . import payload_scan, timestamps
+from .payload_scan import strict_iso_times
 from .service_config import Payload, TopicTemplate
+from .timeparse import format_time
 from .types import BAD, GOOD, UNCERTAIN
 
 # Reasons a message or a sample is refused (metric label values; stable names).
@@ -184,6 +186,7 @@ class TopicMatcher:
 
 
 _MISSING = object()
+_json_decode = json.JSONDecoder().decode  # what json.loads uses for text; NaN and Infinity are accepted
 
 
 class _ReceiveTime:
@@ -246,7 +249,7 @@ class _Columns:
 class Decoder:
     """Decode micro-batches of MQTT messages per ``source.payload`` and ``source.mqtt.topics``."""
 
-    def __init__(self, payload: Payload, topics: Sequence[TopicTemplate]) -> None:
+    def __init__(self, payload: Payload, topics: Sequence[TopicTemplate], *, scanner: bool = True) -> None:
         self.payload = payload
         self.topics = TopicMatcher(topics)
         keys = payload.keys
@@ -254,23 +257,48 @@ class Decoder:
         self._get_ts = itemgetter(keys.timestamp)
         self._get_value = itemgetter(keys.value)
         self._quality_key = keys.quality
+        self._get_quality = itemgetter(keys.quality)
         self._encoding = payload.quality_encoding
         self._max_future = payload.max_future_ns
         self._retained_max_age = payload.retained_max_age_ns
         self._known_names: set[str] = set()
+        self._scan_keys = (payload_scan.key_table(keys.timestamp, keys.value, keys.quality, keys.samples)
+                           if payload.format == "json" and scanner else None)  # fmt: skip
+        self._words = payload_scan.word_table()
+        self._words_ok = payload.quality_encoding in ("auto", "word")
 
     # -- public ------------------------------------------------------------------------------------
     def decode(self, messages: Sequence[tuple[str, bytes, int, bool]]) -> DecodedSamples:
         """Decode (topic, payload, received_ns, retained) messages; never raises."""
         columns = _Columns()
-        for index, (topic, payload, received_ns, retained) in enumerate(messages):
-            try:
-                self._add(columns, index, topic, payload, received_ns, retained)
-            except DecodeError as error:
-                columns.refusals.append(Refusal(index, error.reason, 0, error.detail))
-            except Exception as error:  # noqa: BLE001 - a decoder bug must cost one message, not the service
-                columns.refusals.append(Refusal(index, DECODER_ERROR, 0, f"{type(error).__name__}: {error}"))
-        return self._finish(columns)
+        names: dict[str, int] = {}
+        scan: list[tuple[int, str]] = []  # JSON messages whose topic names the tag: for the compiled scanner
+        for index, (topic, payload, _received_ns, _retained) in enumerate(messages):
+            if self._scan_keys is not None and len(payload) <= self.payload.max_bytes:
+                try:
+                    tag = self.topics.tag_of(topic)
+                except DecodeError:
+                    tag = None
+                if tag is not None:
+                    scan.append((index, tag))
+                    continue
+            self._add_safely(columns, index, messages[index])
+        parts = []
+        if scan:
+            part, handed_back = self._scan(messages, scan, names)
+            parts.append(part)
+            for index in handed_back:
+                self._add_safely(columns, index, messages[index])
+        parts.append(self._general_part(columns, names))
+        return self._assemble(parts, names, columns)
+
+    def _add_safely(self, columns: _Columns, index: int, message: tuple[str, bytes, int, bool]) -> None:
+        try:
+            self._add(columns, index, *message)
+        except DecodeError as error:
+            columns.refusals.append(Refusal(index, error.reason, 0, error.detail))
+        except Exception as error:  # noqa: BLE001 - a decoder bug must cost one message, not the service
+            columns.refusals.append(Refusal(index, DECODER_ERROR, 0, f"{type(error).__name__}: {error}"))
 
     def decode_one(self, topic: str, payload: bytes, received_ns: int = 0, retained: bool = False) -> DecodedSamples:
         """One message; raises DecodeError when nothing of it is accepted (the fuzz-tested entry point)."""
@@ -301,11 +329,15 @@ class Decoder:
             self._segment(c, fixed_tag, 1, index, received_ns, retained)
             return
         try:
-            document = json.loads(payload)
+            text = payload.decode("utf-8")
+            document = _json_decode(text[1:] if text[:1] == "\ufeff" else text)
         except (ValueError, RecursionError):
             raise DecodeError(NOT_JSON, _preview(payload)) from None
         if type(document) is dict:
             inner = document.get(self._keys.samples)
+            if inner is None and fixed_tag is not None and self._single(c, document, fixed_tag, index, received_ns,
+                                                                        retained):  # fmt: skip
+                return
             samples = inner if type(inner) is list else [document]
         elif type(document) is list:
             samples = document
@@ -316,6 +348,31 @@ class Decoder:
         if fixed_tag is None or not self._fast(c, samples, fixed_tag, index, received_ns, retained):
             self._slow(c, samples, topic, fixed_tag, index, received_ns, retained)
 
+    def _single(self, c: _Columns, sample: dict[str, Any], tag: str, index: int, received_ns: int,
+                retained: bool) -> bool:  # fmt: skip
+        """One object, one sample: the most common payload, taken without building lists."""
+        keys = self._keys
+        stamp = sample.get(keys.timestamp)
+        value = sample.get(keys.value)
+        if type(value) not in _NUMBER_TYPES or stamp is None:
+            return False
+        raw = sample.get(self._quality_key)
+        code = int(GOOD) if raw is None else quality_code(raw, self._encoding)
+        if code == _INVALID:
+            return False
+        c.ts.append(stamp)
+        c.value.append(value)
+        c.quality.append(code)
+        if c.segment_tag and c.segment_tag[-1] == tag and c.segment_message[-1] == index:
+            c.segment_length[-1] += 1
+        else:
+            c.segment_tag.append(tag)
+            c.segment_length.append(1)
+            c.segment_message.append(index)
+            c.segment_received.append(received_ns)
+            c.segment_retained.append(retained)
+        return True
+
     def _fast(self, c: _Columns, samples: list[Any], tag: str, index: int, received_ns: int, retained: bool) -> bool:
         """The common case in a few C-level passes: every sample an object with a number and a time."""
         try:
@@ -325,11 +382,15 @@ class Decoder:
             return False
         if not set(map(type, values)) <= _NUMBER_TYPES:
             return False
-        key = self._quality_key
         try:
-            raw_quality = [s.get(key) for s in samples]
-        except AttributeError:
-            return False
+            raw_quality = list(map(self._get_quality, samples))
+        except KeyError:
+            # Some or all samples without quality. When every object holds exactly the time and the value
+            # (the sum of their sizes says so), none has a quality: all good.
+            if sum(map(len, samples)) == 2 * len(samples):
+                raw_quality = [None]
+            else:
+                raw_quality = [s.get(self._quality_key) for s in samples]
         kinds = set(map(type, raw_quality))
         if kinds == {type(None)}:
             codes = [int(GOOD)] * len(samples)
@@ -423,53 +484,134 @@ class Decoder:
         c.segment_received.append(received_ns)
         c.segment_retained.append(retained)
 
+    # -- the compiled scanner ------------------------------------------------------------------------
+    def _scan(self, messages: Sequence[tuple[str, bytes, int, bool]], scan: list[tuple[int, str]],
+              names: dict[str, int]) -> tuple[_Part, list[int]]:  # fmt: skip
+        """Samples of the messages the scanner reads; returns them and the messages it hands back."""
+        assert self._scan_keys is not None
+        payloads = [messages[index][1] for index, _tag in scan]
+        blob = b"".join(payloads)
+        buffer = np.frombuffer(blob, dtype=np.uint8)
+        lengths = np.fromiter(map(len, payloads), dtype=np.int64, count=len(payloads))
+        ends = np.cumsum(lengths)
+        starts = ends - lengths
+        capacity = blob.count(b"{") + 1
+        ts_start = np.empty(capacity, np.int64)
+        ts_length = np.empty(capacity, np.int64)
+        ts_kind = np.empty(capacity, np.int8)
+        value_start = np.empty(capacity, np.int64)
+        value_length = np.empty(capacity, np.int64)
+        quality = np.empty(capacity, np.uint8)
+        counts = np.empty(len(scan), np.int64)
+        table, key_lengths = self._scan_keys
+        n = payload_scan.scan_json_samples(buffer, starts, ends, table, key_lengths, self._words, self._words_ok,
+                                           ts_start, ts_length, ts_kind, value_start, value_length, quality,
+                                           counts)  # fmt: skip
+        accepted = counts >= 0
+        per_message = np.where(accepted, counts, 0)
+        index = np.asarray([i for i, _t in scan], dtype=np.int32)
+        message = np.repeat(index, per_message)
+        ts = np.zeros(n, np.int64)
+        usable = np.ones(n, bool)
+        text = ts_kind[:n] == payload_scan.STRING
+        rows = np.flatnonzero(text)
+        if rows.size:
+            if self.payload.timestamp_format in ("epoch_s", "epoch_ms"):
+                usable[rows] = False
+            else:
+                decided = np.zeros(rows.size, np.bool_)
+                found = np.zeros(rows.size, np.int64)
+                payload_scan.strict_iso_kernel(buffer, ts_start[rows], ts_length[rows], found, decided)
+                ts[rows] = found
+                usable[rows] = decided
+        rows = np.flatnonzero(~text)
+        if rows.size:
+            numbers = _span_numbers(buffer, ts_start[rows], ts_length[rows])
+            if numbers is None or not np.isfinite(numbers).all():
+                usable[rows] = False
+            else:
+                ts[rows], bad = self._number_times(numbers)
+                usable[rows] &= ~bad
+        value = _span_numbers(buffer, value_start[:n], value_length[:n])
+        if value is None:
+            return _Part.empty(), [i for i, _t in scan]
+        usable &= np.isfinite(value)  # inf only from digits beyond float range: the general path decides
+        handed = set(index[~accepted].tolist())
+        if not usable.all():
+            handed.update(message[~usable].tolist())
+        keep = ~np.isin(message, np.fromiter(handed, dtype=np.int32, count=len(handed))) if handed else None
+        message_code = np.fromiter((names.setdefault(tag, len(names)) for _i, tag in scan), dtype=np.int32,
+                                   count=len(scan))  # fmt: skip
+        code = np.repeat(message_code, per_message)
+        received = np.repeat(np.fromiter((messages[i][2] for i, _t in scan), dtype=np.int64, count=len(scan)),
+                             per_message)  # fmt: skip
+        retained = np.repeat(np.fromiter((messages[i][3] for i, _t in scan), dtype=np.bool_, count=len(scan)),
+                             per_message)  # fmt: skip
+        part = _Part(message, code, ts, value, quality[:n].copy(), received, retained)
+        if keep is not None:
+            part = part.take(keep)
+        return part, sorted(handed)
+
     # -- per micro-batch ---------------------------------------------------------------------------
-    def _finish(self, c: _Columns) -> DecodedSamples:
+    def _general_part(self, c: _Columns, names: dict[str, int]) -> _Part:
+        """Columns of the samples the general path accepted; refusals by value or time are recorded in c."""
         n = len(c.value)
+        if n == 0:
+            return _Part.empty()
         lengths = np.asarray(c.segment_length, dtype=np.int64)
         message = np.repeat(np.asarray(c.segment_message, dtype=np.int32), lengths)
         received = np.repeat(np.asarray(c.segment_received, dtype=np.int64), lengths)
         retained = np.repeat(np.asarray(c.segment_retained, dtype=np.bool_), lengths)
+        codes = np.asarray([names.setdefault(t, len(names)) for t in c.segment_tag], dtype=np.int32)
+        code = np.repeat(codes, lengths)
         ts, bad_ts = self._timestamps(c.ts, received)
         value, bad_value = self._values(c.value)
-        quality = np.asarray(c.quality, dtype=np.uint8) if n else np.zeros(0, np.uint8)
-        refuse = np.zeros(n, dtype=np.uint8)  # 0 kept, else 1 + index into the reasons below
-        checks: tuple[tuple[str, np.ndarray], ...] = ((WRONG_TYPE, bad_value), (BAD_TIMESTAMP, bad_ts))
-        reasons = [WRONG_TYPE, BAD_TIMESTAMP]
-        if self._max_future is not None and n:
-            reasons.append(FUTURE_TIMESTAMP)
-            checks += ((FUTURE_TIMESTAMP, ~bad_ts & (ts > received + self._max_future)),)
-        if self._retained_max_age is not None and n and retained.any():
-            reasons.append(RETAINED_TOO_OLD)
-            checks += ((RETAINED_TOO_OLD, ~bad_ts & retained & (ts < received - self._retained_max_age)),)
-        for code, (_reason, mask) in enumerate(checks, start=1):
-            refuse[(refuse == 0) & mask] = code
-        refusals = c.refusals
-        if refuse.any():
-            for code, reason in enumerate(reasons, start=1):
-                rows = np.flatnonzero(refuse == code)
+        quality = np.asarray(c.quality, dtype=np.uint8)
+        part = _Part(message, code, ts, value, quality, received, retained)
+        bad = bad_value | bad_ts
+        if bad.any():
+            for reason, mask in ((WRONG_TYPE, bad_value), (BAD_TIMESTAMP, bad_ts & ~bad_value)):
+                rows = np.flatnonzero(mask)
                 if rows.size:
                     msgs, counts = np.unique(message[rows], return_counts=True)
                     for m, k in zip(msgs.tolist(), counts.tolist(), strict=True):
-                        refusals.append(Refusal(m, reason, k, _ts_detail(reason, c.ts, rows, message, m)))
-            keep = refuse == 0
-        else:
-            keep = None
-        names: dict[str, int] = {}
-        segment_codes = np.asarray([names.setdefault(t, len(names)) for t in c.segment_tag], dtype=np.int32)
-        codes = np.repeat(segment_codes, lengths)
-        if keep is not None:
-            codes, ts, value, quality, message = codes[keep], ts[keep], value[keep], quality[keep], message[keep]
-            used = np.unique(codes)
-            if used.size < len(names):
-                remap = np.full(len(names), -1, dtype=np.int32)
-                remap[used] = np.arange(used.size, dtype=np.int32)
-                all_names = list(names)
-                names = {all_names[u]: i for i, u in enumerate(used.tolist())}
-                codes = remap[codes]
+                        c.refusals.append(Refusal(m, reason, k, _raw_detail(reason, c.ts, rows, message, m)))
+            part = part.take(~bad)
+        return part
+
+    def _assemble(self, parts: list[_Part], names: dict[str, int], c: _Columns) -> DecodedSamples:
+        """Join the parts in message order, refuse by time (future, stale retained), compact the names."""
+        part = parts[0] if len(parts) == 1 else _Part.concat(parts)
+        if len(parts) > 1 and part.message.size > 1 and (np.diff(part.message) < 0).any():
+            part = part.take(np.argsort(part.message, kind="stable"))
+        refusals = c.refusals
+        checks = []
+        if self._max_future is not None:
+            checks.append((FUTURE_TIMESTAMP, part.ts > part.received + self._max_future))
+        if self._retained_max_age is not None and part.retained.any():
+            checks.append((RETAINED_TOO_OLD, part.retained & (part.ts < part.received - self._retained_max_age)))
+        refused = np.zeros(part.message.size, bool)
+        for reason, mask in checks:
+            mask = mask & ~refused
+            rows = np.flatnonzero(mask)
+            if rows.size:
+                msgs, first, counts = np.unique(part.message[rows], return_index=True, return_counts=True)
+                for m, f, k in zip(msgs.tolist(), first.tolist(), counts.tolist(), strict=True):
+                    refusals.append(Refusal(m, reason, k, _time_detail(reason, int(part.ts[rows[f]]))))
+                refused |= mask
+        if refused.any():
+            part = part.take(~refused)
+        code = part.code
+        ordered = list(names)
+        used = np.unique(code)
+        if used.size < len(ordered):
+            remap = np.full(max(len(ordered), 1), -1, dtype=np.int32)
+            remap[used] = np.arange(used.size, dtype=np.int32)
+            ordered = [ordered[u] for u in used.tolist()]
+            code = remap[code]
         refusals.sort(key=lambda r: r.message)
-        return DecodedSamples(list(names), codes, ts, value, quality, message, refusals,
-                              c.clock_stamped & set(names))  # fmt: skip
+        return DecodedSamples(ordered, code.astype(np.int32, copy=False), part.ts, part.value, part.quality,
+                              part.message, refusals, c.clock_stamped & set(ordered))  # fmt: skip
 
     @staticmethod
     def _values(values: list[Any]) -> tuple[np.ndarray, np.ndarray]:
@@ -514,6 +656,19 @@ class Decoder:
     def _text_times(self, text: list[str]) -> tuple[np.ndarray, np.ndarray]:
         if self.payload.timestamp_format in ("epoch_s", "epoch_ms"):
             return np.zeros(len(text), np.int64), np.ones(len(text), bool)
+        ns, done = strict_iso_times(text)
+        if done.all():
+            return ns, np.zeros(len(text), bool)
+        rest = np.flatnonzero(~done)
+        rest_ns, rest_bad = self._arrow_times([text[i] for i in rest.tolist()])
+        ns[rest] = rest_ns
+        bad = np.zeros(len(text), bool)
+        bad[rest] = rest_bad
+        return ns, bad
+
+    @staticmethod
+    def _arrow_times(text: list[str]) -> tuple[np.ndarray, np.ndarray]:
+        """ISO text the strict parser left, through pyarrow's parser exactly as the historian reader uses it."""
         try:
             array = pa.array(text, type=pa.string())
         except (pa.ArrowException, UnicodeError, ValueError):
@@ -529,7 +684,7 @@ class Decoder:
         ns, bad = timestamps.parse_iso(array)  # naive ISO times (UTC) and the bad cells, found one by one
         return ns, bad
 
-    def _number_times(self, numbers: list[Any]) -> tuple[np.ndarray, np.ndarray]:
+    def _number_times(self, numbers: list[Any] | np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         fmt = self.payload.timestamp_format
         try:
             values = np.asarray(numbers, dtype=np.float64)
@@ -563,11 +718,57 @@ def _preview(payload: bytes, limit: int = 60) -> str:
     return repr(text) + ("..." if len(payload) > limit else "")
 
 
-def _ts_detail(reason: str, raw: list[Any], rows: np.ndarray, message: np.ndarray, m: int) -> str:
+def _raw_detail(reason: str, raw: list[Any], rows: np.ndarray, message: np.ndarray, m: int) -> str:
     first = int(rows[np.flatnonzero(message[rows] == m)[0]])
-    value = raw[first]
-    shown = "the receive time" if value is _RECEIVE_TIME else repr(value)[:60]
-    return {WRONG_TYPE: "a value beyond the range of float64",
-            BAD_TIMESTAMP: f"timestamp {shown} is not readable",
-            FUTURE_TIMESTAMP: f"timestamp {shown} is ahead of the receive time by more than max_future",
-            RETAINED_TOO_OLD: f"retained sample at {shown} is older than retained_max_age"}[reason]  # fmt: skip
+    if reason == WRONG_TYPE:
+        return "a value beyond the range of float64"
+    return f"timestamp {repr(raw[first])[:60]} is not readable"
+
+
+def _time_detail(reason: str, ts_ns: int) -> str:
+    shown = format_time(ts_ns)
+    if reason == FUTURE_TIMESTAMP:
+        return f"timestamp {shown} is ahead of the receive time by more than max_future"
+    return f"retained sample at {shown} is older than retained_max_age"
+
+
+def _span_numbers(buffer: np.ndarray, starts: np.ndarray, lengths: np.ndarray) -> np.ndarray | None:
+    """JSON number texts (spans of buffer) to float64 through pyarrow's correctly rounded parser."""
+    n = starts.shape[0]
+    if n == 0:
+        return np.zeros(0)
+    data = np.empty(int(lengths.sum()), dtype=np.uint8)
+    offsets = np.empty(n + 1, dtype=np.int32)
+    payload_scan.gather_spans(buffer, starts, lengths, data, offsets)
+    text = pa.StringArray.from_buffers(n, pa.py_buffer(offsets), pa.py_buffer(data))
+    try:
+        return np.asarray(pc.cast(text, pa.float64()).to_numpy(zero_copy_only=False), dtype=np.float64)
+    except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
+        return None
+
+
+@dataclass
+class _Part:
+    """Accepted samples of some messages, as columns (one path's share of a micro-batch)."""
+
+    message: np.ndarray  # int32
+    code: np.ndarray  # int32 into the shared names
+    ts: np.ndarray
+    value: np.ndarray
+    quality: np.ndarray
+    received: np.ndarray
+    retained: np.ndarray
+
+    @classmethod
+    def empty(cls) -> _Part:
+        return cls(np.zeros(0, np.int32), np.zeros(0, np.int32), np.zeros(0, np.int64), np.zeros(0),
+                   np.zeros(0, np.uint8), np.zeros(0, np.int64), np.zeros(0, bool))  # fmt: skip
+
+    def take(self, rows: np.ndarray) -> _Part:
+        return _Part(self.message[rows], self.code[rows], self.ts[rows], self.value[rows], self.quality[rows],
+                     self.received[rows], self.retained[rows])  # fmt: skip
+
+    @classmethod
+    def concat(cls, parts: list[_Part]) -> _Part:
+        return cls(*(np.concatenate([getattr(p, f) for p in parts]) for f in
+                     ("message", "code", "ts", "value", "quality", "received", "retained")))  # fmt: skip

@@ -7,16 +7,21 @@ service restores the checkpoint and processes the journal from that position bef
 messages, so no acknowledged sample is lost and each is counted once. The journal also absorbs bursts:
 when the in-memory queue is full the pipeline reads the overflow back from here.
 
-Format: segment files ``<number>.journal`` of records ``crc32 | topic length | payload length |
-received ns | flags`` followed by the topic and payload bytes. A record cut short by a crash (or one
-whose CRC does not match) ends the journal; the writer truncates it when it reopens. Records are
-written with one ``writev`` call and no fsync (a killed process loses nothing the kernel has; a power
-cut can lose what the kernel had not yet written), and the current segment is fsynced at each
-checkpoint. Segments wholly before the last checkpoint are deleted.
+Format: segment files ``<number>.journal`` of fixed size, mapped into memory, holding records
+``crc32 | topic length | payload length | received ns | flags`` followed by the topic and payload bytes;
+the CRC covers everything after it, and the header is written last, so a record cut short by a crash
+fails its check and ends the journal (the writer clears it when it reopens). Writing through the memory
+map is a copy, not a system call: the MQTT thread never gives up the interpreter lock to journal a
+message, which matters because taking it back can wait for the processing thread's whole time slice.
+The pages belong to the kernel's cache, so a killed process loses nothing; a power cut can lose what the
+kernel had not yet written, and the journal is flushed to disk at every checkpoint. Segments wholly
+before the last checkpoint are deleted.
 """
 
 from __future__ import annotations
 
+import errno
+import mmap
 import os
 import struct
 import zlib
@@ -25,8 +30,11 @@ from dataclasses import dataclass
 from pathlib import Path
 
 HEADER = struct.Struct("<IIIqB")  # crc32, topic length, payload length, received ns, flags
-RETAINED = 1
-SEGMENT_BYTES = 64 << 20
+_AFTER_CRC = struct.Struct("<IIqB")
+_CRC = struct.Struct("<I")
+VALID = 0x80  # set in every record's flags: a zeroed (unwritten) header is never a record
+RETAINED = 0x01
+SEGMENT_BYTES = 16 << 20
 _SUFFIX = ".journal"
 _MAX_TOPIC = 65_535
 _MAX_PAYLOAD = 268_435_455  # the MQTT maximum
@@ -34,7 +42,7 @@ _MAX_PAYLOAD = 268_435_455  # the MQTT maximum
 
 @dataclass(frozen=True, order=True)
 class Position:
-    """A place in the journal: just after a record (or the very start, segment 0 offset 0)."""
+    """A place in the journal: just after a record (or the very start of a segment)."""
 
     segment: int
     offset: int
@@ -63,12 +71,8 @@ def segments(directory: Path) -> list[int]:
     return sorted(numbers)
 
 
-def _valid_end(path: Path) -> int:
-    """Byte offset just after the last whole, intact record of a segment file."""
-    end = 0
-    for record_end, *_ in _scan(path, 0):
-        end = record_end
-    return end
+def _checksum(rest_of_header: bytes, topic: bytes, payload: bytes) -> int:
+    return zlib.crc32(payload, zlib.crc32(topic, zlib.crc32(rest_of_header)))
 
 
 def _scan(path: Path, offset: int, stop: int | None = None) -> Iterator[tuple[int, bytes, bytes, int, int]]:
@@ -81,7 +85,7 @@ def _scan(path: Path, offset: int, stop: int | None = None) -> Iterator[tuple[in
         handle.seek(offset)
         buffer = b""
         position = offset
-        while stop is None or position < stop:
+        while stop is None or position + HEADER.size <= stop:
             if len(buffer) < HEADER.size:
                 more = handle.read(1 << 20)
                 if not more:
@@ -89,17 +93,19 @@ def _scan(path: Path, offset: int, stop: int | None = None) -> Iterator[tuple[in
                 buffer += more
                 continue
             crc, topic_length, payload_length, received_ns, flags = HEADER.unpack_from(buffer)
-            if topic_length > _MAX_TOPIC or payload_length > _MAX_PAYLOAD:
+            if not flags & VALID or topic_length > _MAX_TOPIC or payload_length > _MAX_PAYLOAD:
                 return
             size = HEADER.size + topic_length + payload_length
             while len(buffer) < size:
                 more = handle.read(max(1 << 20, size - len(buffer)))
                 if not more:
-                    return  # cut short: the writer died mid-record
+                    return  # cut short
                 buffer += more
             topic = buffer[HEADER.size : HEADER.size + topic_length]
             payload = buffer[HEADER.size + topic_length : size]
-            if zlib.crc32(payload, zlib.crc32(topic)) != crc:
+            if _checksum(buffer[4 : HEADER.size], topic, payload) != crc:
+                return
+            if stop is not None and position + size > stop:
                 return
             position += size
             buffer = buffer[size:]
@@ -115,12 +121,34 @@ class JournalWriter:
         self.segment_bytes = segment_bytes
         present = segments(self.directory)
         self.segment = present[-1] if present else 1
-        path = _segment_path(self.directory, self.segment)
-        self.offset = _valid_end(path) if path.exists() else 0
-        if path.exists() and path.stat().st_size != self.offset:
-            with path.open("r+b") as handle:
-                handle.truncate(self.offset)  # a record cut short by a crash
-        self._fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_APPEND, 0o640)
+        self.offset = 0
+        for end, *_ in _scan(_segment_path(self.directory, self.segment), 0):
+            self.offset = end
+        self._map: mmap.mmap | None = None
+        self._open(self.segment)
+        assert self._map is not None
+        # Clear whatever a crash left after the last intact record, so it can never be read as one.
+        self._map[self.offset : self.offset + min(HEADER.size, len(self._map) - self.offset)] = bytes(
+            min(HEADER.size, len(self._map) - self.offset))  # fmt: skip
+
+    def _open(self, number: int) -> None:
+        path = _segment_path(self.directory, number)
+        fd = os.open(path, os.O_RDWR | os.O_CREAT, 0o640)
+        try:
+            size = max(os.fstat(fd).st_size, self.segment_bytes)
+            if os.fstat(fd).st_size < size:
+                # Reserve the blocks now: a write through the map to a full disk would kill the process
+                # (SIGBUS); here it is an OSError the caller counts.
+                try:
+                    os.posix_fallocate(fd, 0, size)
+                except OSError as error:
+                    if error.errno not in (errno.EOPNOTSUPP, errno.EINVAL):
+                        raise
+                    os.ftruncate(fd, size)
+            self._map = mmap.mmap(fd, size)
+        finally:
+            os.close(fd)
+        self.capacity = size
 
     @property
     def end(self) -> Position:
@@ -133,26 +161,32 @@ class JournalWriter:
 
     def append(self, topic: bytes, payload: bytes, received_ns: int, retained: bool) -> Position:
         """Write one record; returns the position just after it."""
-        if self.offset >= self.segment_bytes:
-            self._rotate()
-        crc = zlib.crc32(payload, zlib.crc32(topic))
-        header = HEADER.pack(crc, len(topic), len(payload), received_ns, RETAINED if retained else 0)
-        size = len(header) + len(topic) + len(payload)
-        written = os.writev(self._fd, (header, topic, payload))
-        if written != size:
-            raise OSError(f"journal {self.segment}: short write ({written} of {size} bytes)")
-        self.offset += size
+        size = HEADER.size + len(topic) + len(payload)
+        if self.offset + size > self.capacity:
+            self._rotate(size)
+        rest = _AFTER_CRC.pack(len(topic), len(payload), received_ns, VALID | (RETAINED if retained else 0))
+        crc = _checksum(rest, topic, payload)
+        start = self.offset
+        body = start + HEADER.size
+        mapped = self._map
+        assert mapped is not None
+        mapped[body : start + size] = topic + payload
+        mapped[start:body] = _CRC.pack(crc) + rest  # last: the record exists once this lands
+        self.offset = start + size
         return Position(self.segment, self.offset)
 
-    def _rotate(self) -> None:
-        os.fsync(self._fd)
-        os.close(self._fd)
+    def _rotate(self, size: int) -> None:
+        self.sync()
+        if self._map is not None:
+            self._map.close()
         self.segment += 1
         self.offset = 0
-        self._fd = os.open(_segment_path(self.directory, self.segment), os.O_WRONLY | os.O_CREAT | os.O_APPEND, 0o640)
+        self.segment_bytes = max(self.segment_bytes, size)
+        self._open(self.segment)
 
     def sync(self) -> None:
-        os.fsync(self._fd)
+        if self._map is not None:
+            self._map.flush()
 
     def drop_before(self, position: Position) -> int:
         """Delete segments that end before ``position``; returns how many were deleted."""
@@ -164,9 +198,10 @@ class JournalWriter:
         return dropped
 
     def close(self) -> None:
-        if self._fd >= 0:
-            os.close(self._fd)
-            self._fd = -1
+        if self._map is not None:
+            self._map.flush()
+            self._map.close()
+            self._map = None
 
 
 def read_journal(directory: str | Path, start: Position, end: Position | None = None) -> Iterator[Record]:

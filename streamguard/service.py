@@ -62,6 +62,7 @@ from .types import Batch
 
 log = logging.getLogger("streamguard.service")
 
+
 SHUTDOWN_BUDGET_S = 9.0  # SIGTERM to exit, inside the 10 s a container runtime allows by default
 REPEAT_DEPTH = 8  # timestamps remembered per tag to recognise redelivered samples
 _INT64_MIN = np.iinfo(np.int64).min
@@ -76,7 +77,7 @@ class JsonLines(logging.Formatter):
 
     def format(self, record: logging.LogRecord) -> str:
         data: dict[str, Any] = {
-            "ts": format_time(int(record.created * 1e9)),
+            "ts": format_time(int(record.created * 1e6) * 1000),
             "level": record.levelname.lower(),
             "logger": record.name,
             "msg": record.getMessage(),
@@ -89,11 +90,11 @@ class JsonLines(logging.Formatter):
         return json.dumps(data, default=str)
 
 
-def setup_logging(stream: TextIO = sys.stdout, level: int = logging.INFO) -> None:
+def setup_logging(stream: TextIO | None = None, level: int = logging.INFO) -> None:
     root = logging.getLogger("streamguard")
     for handler in list(root.handlers):
         root.removeHandler(handler)
-    handler = logging.StreamHandler(stream)
+    handler = logging.StreamHandler(stream if stream is not None else sys.stdout)
     handler.setFormatter(JsonLines())
     root.addHandler(handler)
     root.setLevel(level)
@@ -228,6 +229,7 @@ class Service:
         self.clock_stamped: set[str] = set()
         # counters (plain numbers; the metrics collector reads them at scrape time)
         self.messages_received = 0
+        self.samples_decided = 0  # samples decoded and then processed, dropped as repeats or untracked
         self.journal_errors = 0
         self.decode_failures: dict[str, int] = {}
         self.duplicates = 0
@@ -241,6 +243,7 @@ class Service:
         self.restored = False
         self.heartbeat = time.monotonic()
         self._samples_per_message = 1.0
+        self._window_ns = int(self.settings.source.batch_window_s * 1e9)
         self._limits_cache: dict[str, bool] = {}
         self._stopping = False
         self._reload_requested = False
@@ -282,23 +285,23 @@ class Service:
             signal.signal(signal.SIGINT, self._on_stop_signal)
             signal.signal(signal.SIGHUP, self._on_reload_signal)
         self._announce()
-        self.restore()
         if self.settings.metrics.listen is not None:
             host, port = self.settings.metrics.address
             self.metrics_server = MetricsServer(host, port, self.registry, self.health, self.readiness)
             self.metrics_server.start()
             log.info("metrics listening", extra=_fields(host=host, port=self.metrics_server.port))
+        self.restore()  # /healthz answers meanwhile; /readyz says not ready until this is done
         self.connection.start()
         interval = self.settings.checkpoint.interval_s
         next_checkpoint = time.monotonic() + interval
         while not self._stopping:
             self.heartbeat = time.monotonic()
-            items = self._take(self.settings.source.batch_window_s)
-            if items:
-                self._process_items(items)
+            if self._wait_for_batch():
+                self._process_pending()
             elif self.inbound.overflowing:
                 self._catch_up()
-            self.sink.pump()
+            with self.lock:
+                self.sink.pump()
             if time.monotonic() >= next_checkpoint:
                 self.checkpoint()
                 next_checkpoint = time.monotonic() + interval
@@ -327,24 +330,39 @@ class Service:
             alarm_topic=self.sink.topics.alarm, authenticated=bool(mqtt.username),
             tls=mqtt.tls is not None))  # fmt: skip
 
-    def _take(self, window: float) -> list[tuple[str, bytes, int, bool, Position | None]]:
+    def _wait_for_batch(self) -> bool:
+        """Wait until a message is queued and its micro-batch is due; False after 0.1 s with none."""
         inbound = self.inbound
         if not inbound.items:
             inbound.ready.wait(0.1)
-        if not inbound.items:
-            return []
-        limit = max(1, int(self.settings.source.batch_samples / max(self._samples_per_message, 1.0)))
-        linger = inbound.items[0][2] / 1e9 + window - time.time()
-        if linger > 0 and len(inbound.items) < limit:
-            time.sleep(min(linger, window))
-        items: list[tuple[str, bytes, int, bool, Position | None]] = []
-        while inbound.items and len(items) < limit:
-            items.append(inbound.items.popleft())
-        if not inbound.items:
-            inbound.ready.clear()
-            if inbound.items:
-                inbound.ready.set()
-        return items
+        try:
+            first = inbound.items[0][2]
+        except IndexError:
+            return False
+        linger = (first + self._window_ns - time.time_ns()) / 1e9
+        if linger > 0 and len(inbound.items) < self._batch_limit:
+            time.sleep(linger)
+        return True
+
+    def _process_pending(self) -> None:
+        """Take the next micro-batch off the queue and process it."""
+        with self.lock:
+            inbound = self.inbound
+            items: list[tuple[str, bytes, int, bool, Position | None]] = []
+            limit = self._batch_limit
+            while inbound.items and len(items) < limit:
+                items.append(inbound.items.popleft())
+            if not inbound.items:
+                inbound.ready.clear()
+                if inbound.items:
+                    inbound.ready.set()
+            if items:
+                self._process_items(items)
+                self.sink.pump()
+
+    @property
+    def _batch_limit(self) -> int:
+        return max(1, int(self.settings.source.batch_samples / max(self._samples_per_message, 1.0)))
 
     def _process_items(self, items: list[tuple[str, bytes, int, bool, Position | None]]) -> None:
         end = next((item[4] for item in reversed(items) if item[4] is not None), None)
@@ -369,6 +387,7 @@ class Service:
             batch.append((record.topic, record.payload, record.received_ns, record.retained))
             last = record.end
             if len(batch) >= limit:
+                self.heartbeat = time.monotonic()
                 self.process(batch, last, live=live)
                 count += len(batch)
                 batch = []
@@ -377,8 +396,10 @@ class Service:
         if batch:
             self.process(batch, last, live=live)
             count += len(batch)
-        if last == start and start < end:
-            # Nothing readable up to the journal's end: a torn record; skip to the end.
+        if last < end and not self._stopping:
+            # Records the writer completed but that do not read back (damaged on disk): skip them, loudly.
+            log.error("journal unreadable; skipped to its end", extra=_fields(
+                from_position=[last.segment, last.offset], to_position=[end.segment, end.offset]))  # fmt: skip
             self.position = end
         return count
 
@@ -393,6 +414,7 @@ class Service:
             batch = self._batch(decoded)
             events = self.pipeline.process(batch) if len(batch) else []
             decided = time.time_ns()
+            self.samples_decided += len(decoded)
             if live and messages:
                 received = np.fromiter((m[2] for m in messages), dtype=np.int64, count=len(messages))
                 seconds = (decided - received) / 1e9
@@ -496,6 +518,9 @@ class Service:
                 else:
                     self.repeats.recent[:n, 0] = self.pipeline.gate_state.last_ts[:n]
                 self.sink.board = AlarmBoard(checkpoint.extra.get("alarm_board") or {})
+                if restarted:
+                    self.outbox.add(self.sink.restart_rows(restarted, self.pipeline.tags.limits_version,
+                                                           time.time_ns()))  # fmt: skip
                 self.clock_stamped = set(checkpoint.extra.get("clock_stamped") or [])
                 self.position = checkpoint.position
                 self.last_checkpoint_ns = checkpoint.created_ns
@@ -551,6 +576,7 @@ class Service:
                     new_pipeline.tags.limits_version != self.pipeline.tags.limits_version):  # fmt: skip
                 restarted = new_pipeline.restore(self.pipeline.snapshot())
                 self.pipeline = new_pipeline
+                self.outbox.add(self.sink.restart_rows(restarted, new_pipeline.tags.limits_version, time.time_ns()))
                 self._limits_cache.clear()
             needs_restart = settings.connection_key() != self.settings.connection_key() or (
                 settings.metrics.listen != self.settings.metrics.listen) or (
@@ -564,6 +590,7 @@ class Service:
             self.settings = settings
             self.config = config
             self.limits = limits
+            self._window_ns = int(settings.source.batch_window_s * 1e9)
         self.reloads["applied"] += 1
         log.info("reloaded config and limits", extra=_fields(
             limits_version=self.pipeline.tags.limits_version, statistics_restarted=len(restarted),
@@ -577,7 +604,7 @@ class Service:
         log.info("stopping")
         # Finish what is already in memory (bounded); anything left is in the journal for the next start.
         while self.inbound.items and time.monotonic() < deadline - 6.0:
-            self._process_items(self._take(0.0))
+            self._process_pending()
         flushed = self.sink.flush(timeout=max(0.1, min(3.0, deadline - time.monotonic() - 3.0)))
         self.checkpoint()
         self.connection.stop(timeout=max(0.2, min(2.0, deadline - time.monotonic() - 0.5)))
@@ -615,7 +642,6 @@ class Service:
             n = len(pipeline.tags)
             samples_array = pipeline.counters.samples[:n]
             totals = samples_array.sum(axis=0) if n else np.zeros(len(REASONS), np.int64)
-            in_alarm = pipeline.counters.in_alarm[:n]
             series = self._tag_series(pipeline, n)
             view = MetricsView(
                 samples={REASONS[r]: int(totals[r]) for r in range(len(REASONS))},
@@ -629,7 +655,7 @@ class Service:
                 latency_buckets=self.latency.buckets(),
                 latency_sum=self.latency.total,
                 tags_tracked=n,
-                tags_in_alarm=int(np.count_nonzero(in_alarm > 0)),
+                tags_in_alarm=self.sink.board.in_alarm_count(),
                 broker_connected=self.connection.connected,
                 subscribed=self.connection.subscribed,
                 reconnects=self.connection.reconnects,

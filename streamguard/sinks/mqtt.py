@@ -78,7 +78,18 @@ class AlarmBoard:
             del self.tags[event.tag]
         return True
 
-    def state_of(self, tag: str, event: Event) -> dict[str, Any]:
+    def restart(self, tag: str) -> bool:
+        """Forget a tag's open alarms (its statistics restarted: no clear event will come); True if it had any."""
+        entry = self.tags.get(tag)
+        if entry is None or not entry["detectors"]:
+            return False
+        entry["detectors"] = {}
+        if not entry["quality"]:
+            del self.tags[tag]
+        return True
+
+    def state_of(self, tag: str, event: Event | None, limits_version: str = "") -> dict[str, Any]:
+        """The retained state message; ``event`` is the one that changed it (None: statistics restarted)."""
         entry = self.tags.get(tag, {"detectors": {}, "quality": {}})
         detectors = entry["detectors"]
         since = min((d["since"] for d in detectors.values()), default=None)
@@ -90,9 +101,9 @@ class AlarmBoard:
                            "since": format_time(d["since"])} for name, d in sorted(detectors.items())],
             "quality_conditions": [{"condition": name, "since": format_time(ts)}
                                    for name, ts in sorted(entry["quality"].items())],
-            "updated_by": event.id,
-            "updated": format_time(event.ts_ns),
-            "limits_version": event.limits_version,
+            "updated_by": event.id if event is not None else "statistics restarted",
+            "updated": format_time(event.ts_ns) if event is not None else None,
+            "limits_version": event.limits_version if event is not None else limits_version,
         }  # fmt: skip
 
     def in_alarm_count(self) -> int:
@@ -143,6 +154,16 @@ class MqttEventSink:
             for tag, event in changed.items():
                 state = self.board.state_of(tag, event)
                 rows.append((f"state:{event.id}", self.topics.state.format(tag=tag),
+                             json.dumps(state, separators=(",", ":")).encode(), True))  # fmt: skip
+        return rows
+
+    def restart_rows(self, tags: Iterable[str], limits_version: str, at_ns: int) -> list[tuple[str, str, bytes, bool]]:
+        """State rows for tags whose statistics restarted while in alarm (their alarms end without a clear)."""
+        rows: list[tuple[str, str, bytes, bool]] = []
+        for tag in tags:
+            if self.board.restart(tag) and self.topics.state is not None:
+                state = self.board.state_of(tag, None, limits_version)
+                rows.append((f"state:restart:{tag}:{at_ns}", self.topics.state.format(tag=tag),
                              json.dumps(state, separators=(",", ":")).encode(), True))  # fmt: skip
         return rows
 

@@ -102,6 +102,7 @@ class MqttConnection:
         self.acked: deque[tuple[int, bool]] = deque()  # (mid, accepted) of our QoS 1 publications
         self.callback_errors = 0
         self._stop = threading.Event()
+        self._stopped = False
         self._thread: threading.Thread | None = None
         self._subscribe_mid: int | None = None
         self._delay = backoff_delays(parse_duration(settings.reconnect.initial) / 1e9,
@@ -112,6 +113,7 @@ class MqttConnection:
         else:
             client = paho.Client(CallbackAPIVersion.VERSION2, client_id=client_id, protocol=protocol,
                                  clean_session=not persistent)  # fmt: skip
+        self.max_in_flight = max_in_flight
         client.max_inflight_messages_set(max_in_flight)
         client.max_queued_messages_set(0)
         client.enable_logger(logging.getLogger("streamguard.mqtt.paho"))
@@ -174,6 +176,10 @@ class MqttConnection:
 
     def _run(self) -> None:
         client = self.client
+        # paho decides by this attribute whether a network thread owns the socket: with it set, publish()
+        # from another thread queues the packet and wakes our select() instead of writing to the socket
+        # itself, concurrently with this thread (which loses or interleaves packets).
+        client._thread = threading.current_thread()
         attempt = 0
         socket_open = False
         while not self._stop.is_set():
@@ -199,15 +205,17 @@ class MqttConnection:
                 delay = self._delay(attempt)
                 attempt += 1
                 self._stop.wait(delay)
+        self._stopped = True
         if socket_open:
             client.disconnect()
             end = time.monotonic() + 0.5
-            while time.monotonic() < end and client.loop(timeout=0.05) == MQTTErrorCode.MQTT_ERR_SUCCESS:
-                pass
-        self._mark_down("stopped")
+            while time.monotonic() < end and client.socket() is not None:
+                client.loop(timeout=0.05)
+        self.connected = False
+        self.subscribed = False
 
     def _mark_down(self, why: str) -> None:
-        if self.connected:
+        if self.connected and not self._stopped:
             log.warning("broker connection lost", extra={"fields": {"reason": why}})
         self.connected = False
         self.subscribed = False
@@ -218,6 +226,11 @@ class MqttConnection:
             self.last_error = f"connection refused: {reason}"
             log.error("broker refused the connection", extra={"fields": {"reason": str(reason)}})
             return
+        # MQTT 5: never more QoS 1 publications in flight than the broker's Receive Maximum (mosquitto drops
+        # a client that exceeds it). paho neither applies it nor lets the public setter change the limit
+        # once connected, so the attribute behind that setter is written here, before paho sends anything.
+        receive_maximum = getattr(properties, "ReceiveMaximum", None) if self.v5 else None
+        client._max_inflight_messages = min(self.max_in_flight, int(receive_maximum or self.max_in_flight))
         self.connected = True
         self.connects += 1
         self.generation += 1

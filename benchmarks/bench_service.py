@@ -288,7 +288,7 @@ def _finish(process: subprocess.Popen[str]) -> Any:
 
 
 def write_config(directory: Path, port: int, client_id: str, protocol: str, metrics_port: int | None) -> Path:
-    config = {
+    config: dict[str, Any] = {
         "subgroup": {"size": 1},
         # Sized like the demo for a quiet in-control stream (a few false alarms per million points).
         "detectors": {"shewhart": {"limit": 4.4, "rules": ["we1"]}, "cusum": {"k": 0.5, "h": 10.0},

@@ -22,6 +22,11 @@ exactly as replay does with the same values in a file, so live and replay keep t
 
 Timestamps go through the historian reader's conversions (pyarrow's ISO parser, the epoch scaling in
 ``timestamps``), so a sample published from a file decodes to the very nanosecond replay reads.
+
+Two paths, one result: messages whose topic names the tag go first through the compiled scanner
+(``payload_scan``), which reads the common shapes several times faster than ``json.loads``; whatever it
+is not sure of, it hands back whole to the general path here (``json.loads`` and per-sample checks), which
+alone decides refusals. The parts are joined in message order, so per tag the arrival order is kept.
 """
 
 from __future__ import annotations
@@ -285,7 +290,10 @@ class Decoder:
             self._add_safely(columns, index, messages[index])
         parts = []
         if scan:
-            part, handed_back = self._scan(messages, scan, names)
+            try:
+                part, handed_back = self._scan(messages, scan, names)
+            except Exception:  # noqa: BLE001 - the general path reads everything, only slower
+                part, handed_back = _Part.empty(), [i for i, _tag in scan]
             parts.append(part)
             for index in handed_back:
                 self._add_safely(columns, index, messages[index])

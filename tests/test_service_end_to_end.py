@@ -360,7 +360,9 @@ def test_burst_with_mosquittos_default_queue_limit_drops_messages(stack: Any) ->
     """The control: mosquitto's default max_queued_messages (1000) silently drops QoS 1 messages queued for a
     slow subscriber although the publisher got every PUBACK - why the shipped broker config raises it."""
     m = _burst(stack, 20_000, 1000)
-    assert m["streamguard_messages_received_total"] < 20_000
+    received = m["streamguard_messages_received_total"]
+    print(f"with max_queued_messages 1000: {received:.0f} of 20000 messages arrived")
+    assert received < 20_000
 
 
 def test_mqtt_connection_module_is_the_only_paho_importer() -> None:

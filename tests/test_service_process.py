@@ -233,3 +233,36 @@ def test_reload_that_restarts_statistics_ends_open_alarms_on_the_state_topic(tmp
     service.reload()
     assert service.reloads == {"applied": 1, "rejected": 1}
     assert service.pipeline.tags.detector_params["cusum"].h[0] == 5.0  # still the last good config
+
+
+def test_a_full_queue_loses_nothing_the_overflow_is_read_back_from_the_journal(tmp_path: Path) -> None:
+    messages = stream(["M-1", "M-2"], 60, seed=9)
+    reference = Service(str(write_config(tmp_path / "reference")), install_signals=False)
+    expected = {e.id for e in reference.process(messages, None, False)}
+
+    service = Service(str(write_config(tmp_path / "small", source__queue_messages=10)), install_signals=False)
+    raised: set[str] = set()
+    original = service.process
+
+    def capture(*args: Any, **kwargs: Any) -> list[Any]:
+        events = original(*args, **kwargs)
+        raised.update(e.id for e in events)
+        return events
+
+    service.process = capture  # type: ignore[method-assign]
+    for topic, payload, _received, retained in messages[:100]:
+        service.receive(topic, payload, retained)
+    assert len(service.inbound.items) == 10 and service.inbound.overflowing
+    assert service.inbound.overflow_total == 90
+    service._process_pending()  # the ten in memory
+    service._catch_up()  # the ninety from the journal
+    assert not service.inbound.overflowing and service.samples_decided == 100
+    for topic, payload, _received, retained in messages[100:]:
+        service.receive(topic, payload, retained)  # in memory again
+    assert len(service.inbound.items) == 10 and service.inbound.overflowing
+    while service.inbound.items or service.inbound.overflowing:
+        service._process_pending()
+        if not service.inbound.items:
+            service._catch_up()
+    assert service.samples_decided == len(messages)
+    assert raised == expected

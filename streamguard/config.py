@@ -243,7 +243,9 @@ class Config(_Strict):
 
 
 class ResolvedTag:
-    """One tag's settings after merging defaults, matching patterns and the exact entry."""
+    """A tag's settings after merging defaults, matching patterns and the exact entry.
+
+    Shared by every tag matched by the same entries (``name`` is the first of them)."""
 
     __slots__ = ("name", "baseline", "detectors", "range", "stale_after", "max_gap_ns", "use_uncertain",
                  "units", "subgroup", "sources", "model")  # fmt: skip
@@ -276,10 +278,20 @@ def _specificity(pattern: str) -> tuple[int, int]:
     return (1 if is_exact else 0, len(pattern))
 
 
-def resolve_tag(config: Config, name: str) -> ResolvedTag:
-    """Merge every matching `tags:` entry, least specific first, so the most specific wins per key."""
+def matching_patterns(config: Config, name: str) -> tuple[str, ...]:
+    """The `tags:` entries that apply to a name, least specific first."""
     matches = [p for p in config.tags if p == name or fnmatch.fnmatchcase(name, p)]
     matches.sort(key=_specificity)
+    return tuple(matches)
+
+
+def resolve_tag(config: Config, name: str, matches: tuple[str, ...] | None = None) -> ResolvedTag:
+    """Merge every matching `tags:` entry, least specific first, so the most specific wins per key.
+
+    Tags matched by the same entries share their settings; pass ``matches`` to reuse them.
+    """
+    if matches is None:
+        matches = matching_patterns(config, name)
     merged: dict[str, Any] = {}
     for pattern in matches:
         entry = config.tags[pattern]
@@ -292,7 +304,7 @@ def resolve_tag(config: Config, name: str) -> ResolvedTag:
                 merged["detectors"] = combined
             else:
                 merged[key] = value
-    return ResolvedTag(name, config, merged, matches)
+    return ResolvedTag(name, config, merged, list(matches))
 
 
 def _format_location(loc: tuple[Any, ...]) -> str:
@@ -387,5 +399,7 @@ def config_fingerprint(config: Config) -> str:
     import hashlib
     import json
 
-    text = json.dumps(config.model_dump(mode="json", by_alias=True, exclude={"input"}), sort_keys=True)
+    # Input columns and the live service's sections (broker, outputs, metrics, state) shape no statistic.
+    exclude = {"input", "source", "output", "metrics", "checkpoint"}
+    text = json.dumps(config.model_dump(mode="json", by_alias=True, exclude=exclude), sort_keys=True)
     return hashlib.sha256(text.encode()).hexdigest()[:16]

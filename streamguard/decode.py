@@ -69,6 +69,7 @@ MAX_TAG_NAME = 512
 _CACHE_LIMIT = 200_000  # topics and tag names remembered; cleared when full (a flood of names stays bounded)
 _UTC_NS = pa.timestamp("ns", tz="UTC")
 _NUMBER_TYPES = frozenset((int, float))
+_SCALAR_TYPES = frozenset((str, int, float, bool))  # hashable JSON scalars
 _INVALID = 255
 
 _WORDS = {"good": int(GOOD), "uncertain": int(UNCERTAIN), "bad": int(BAD)}
@@ -402,7 +403,7 @@ class Decoder:
         kinds = set(map(type, raw_quality))
         if kinds == {type(None)}:
             codes = [int(GOOD)] * len(samples)
-        elif len(kinds) == 1 and len(distinct := set(raw_quality)) == 1:
+        elif len(kinds) == 1 and kinds <= _SCALAR_TYPES and len(distinct := set(raw_quality)) == 1:
             code = quality_code(next(iter(distinct)), self._encoding)
             if code == _INVALID:
                 return False

@@ -338,9 +338,10 @@ class Pipeline:
         np.add.at(counters.in_alarm, tag, np.where(is_raise, 1, -1).astype(np.int32))
         raised_tags, first = np.unique(tag[is_raise], return_index=True)
         if raised_tags.size:
+            # The earliest raise of any detector (0 = none yet), whatever order detectors are handled in.
             first_ts = ts[is_raise][first]
-            unset = counters.first_raise_ts[raised_tags] == 0
-            counters.first_raise_ts[raised_tags[unset]] = first_ts[unset]
+            current = counters.first_raise_ts[raised_tags]
+            counters.first_raise_ts[raised_tags] = np.where(current == 0, first_ts, np.minimum(current, first_ts))
         if name == "shewhart":
             rule_names: tuple[str, ...] = SHEWHART_RULES
         elif name == "spread":

@@ -20,9 +20,15 @@ if TYPE_CHECKING:
     from .limits import LimitsFile
     from .replay import ReplayResult
 
-# Feature modules that add their own subcommands with register(subparsers).
-_FEATURES = ("streamguard.design.commands", "streamguard.comparison.commands", "streamguard.service_commands",
-             "streamguard.review.commands")
+# Feature modules that add their own subcommands with register(subparsers), by the commands they add.
+# Only the module of the command being run is imported: `streamguard run` should not carry scipy's
+# memory for `tune` (about 58 MiB measured).
+_FEATURES = {
+    "streamguard.design.commands": ("arl", "tune"),
+    "streamguard.comparison.commands": ("compare",),
+    "streamguard.service_commands": ("run", "publish"),
+    "streamguard.review.commands": ("weigh",),
+}
 
 
 def _load_limits(path: str | None) -> LimitsFile | None:
@@ -120,7 +126,8 @@ def _design_check_lines(result: ReplayResult) -> list[str]:
     return lines
 
 
-def build_parser() -> argparse.ArgumentParser:
+def build_parser(features: Sequence[str] | None = None) -> argparse.ArgumentParser:
+    """The parser with the core commands and the given feature modules (default: all of them)."""
     parser = argparse.ArgumentParser(
         prog="streamguard",
         description="Streaming change detection for sensor historians and MQTT.",
@@ -152,7 +159,7 @@ def build_parser() -> argparse.ArgumentParser:
     replay.add_argument("files", nargs="+", metavar="FILE")
     replay.set_defaults(handler=cmd_replay)
 
-    for module_name in _FEATURES:
+    for module_name in _FEATURES if features is None else features:
         try:
             module = importlib.import_module(module_name)
         except ModuleNotFoundError as exc:
@@ -163,9 +170,23 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+_CORE = ("check", "baseline", "replay")
+
+
+def _features_for(words: list[str]) -> list[str] | None:
+    """The feature module a command line needs; None (all) for help, version or an unknown command."""
+    if words and words[0] in _CORE:
+        return []
+    for module_name, commands in _FEATURES.items():
+        if words and words[0] in commands:
+            return [module_name]
+    return None
+
+
 def main(argv: Sequence[str] | None = None) -> int:
-    parser = build_parser()
-    args = parser.parse_args(argv)
+    words = list(sys.argv[1:] if argv is None else argv)
+    parser = build_parser(_features_for(words))
+    args = parser.parse_args(words)
     handler = getattr(args, "handler", None)
     if handler is None:
         parser.print_help()

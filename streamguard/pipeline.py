@@ -166,6 +166,8 @@ class Pipeline:
                 columns.load(data, n)
         if same and "pairs" in snapshot["arrays"]:
             self.pair_state.load(snapshot["arrays"]["pairs"], len(self.pair_names))
+        if not same:
+            self.counters.in_alarm[:n] = 0  # the alarm state restarted with the statistics
         return [] if same else names
 
     # -- processing ----------------------------------------------------------------------------

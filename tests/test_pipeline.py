@@ -137,3 +137,15 @@ def test_pipeline_modules_do_no_io() -> None:
                 names = [node.module]
             for name in names:
                 assert name.split(".")[0] not in forbidden, f"{path.name} imports {name}"
+
+
+def test_restore_with_other_limits_ends_open_alarms_in_the_counters() -> None:
+    """When statistics restart, the per-tag count of raised detectors restarts with the alarm state."""
+    config = make_config({"cusum": {"h": 4.0}})
+    first = Pipeline(config)
+    first.tags.lookup(["T0"])
+    first.process(Batch.of(np.zeros(5, np.int32), np.arange(1, 6) * SECOND, [3.0] * 5))
+    assert first.counters.in_alarm[0] == 1
+    other = Pipeline(make_config({"cusum": {"h": 4.0}}, {"baseline": {"mean": 1.0, "sigma": 1.0}}))
+    other.restore(first.snapshot())
+    assert other.counters.in_alarm[0] == 0 and other.alarm_state["cusum"].alarm[0, 0] == 0

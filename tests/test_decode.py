@@ -10,7 +10,7 @@ from datetime import UTC, datetime, timedelta, timezone
 import numpy as np
 import pyarrow as pa
 import pytest
-from hypothesis import HealthCheck, given, settings
+from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
 from streamguard.config import parse_config
@@ -284,6 +284,7 @@ def test_fuzz_arbitrary_bytes_only_raise_decode_error(topic: str, payload: bytes
 
 @settings(max_examples=400, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(topic=_topics, document=_json_values, retained=st.booleans())
+@example(topic="plant/a/X", document={"timestamp": None, "value": 0, "quality": []}, retained=False)  # found once
 def test_fuzz_arbitrary_json_only_raises_decode_error(topic: str, document: object, retained: bool) -> None:
     d = decoder()
     payload = json.dumps(document).encode()

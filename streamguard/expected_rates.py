@@ -14,6 +14,7 @@ from typing import Any
 
 from scipy import stats
 
+from . import constants
 from .config import Config, resolve_tag
 from .durations import format_duration
 from .limits import LimitsFile
@@ -44,7 +45,7 @@ def spread_arl(limit: float, n: float) -> float:
         upper = _D2_2 + limit * _D3_2
         return 1.0 / (2.0 * stats.norm.sf(upper / math.sqrt(2.0)))
     m = int(round(n))
-    c4 = math.sqrt(2.0 / (m - 1)) * math.exp(math.lgamma(m / 2) - math.lgamma((m - 1) / 2))
+    c4 = constants.c4(m)
     half = limit * math.sqrt(1 - c4 * c4)
     p = stats.chi2.sf((m - 1) * (c4 + half) ** 2, m - 1)
     if c4 - half > 0:

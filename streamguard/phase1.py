@@ -20,7 +20,7 @@ from pathlib import Path
 
 import numpy as np
 
-from . import __version__
+from . import __version__, constants
 from .config import BaselineWindow, Config, config_fingerprint
 from .gate import REASONS
 from .limits import EstimationPass, InputFile, LimitsFile, TagLimits, file_sha256, limits_version
@@ -41,10 +41,9 @@ _MEDIAN_MR = math.sqrt(2.0) * 0.6744897501960817  # median of |N(0,2)|: 0.954
 
 
 def c4(n: np.ndarray) -> np.ndarray:
-    from scipy.special import gammaln
-
-    n = np.asarray(n, dtype=float)
-    return np.sqrt(2.0 / (n - 1.0)) * np.exp(gammaln(n / 2.0) - gammaln((n - 1.0) / 2.0))
+    """c4 for each subgroup size, from the chart-constants module (computed once per distinct n)."""
+    sizes, where = np.unique(np.asarray(n, dtype=int), return_inverse=True)
+    return np.array([constants.c4(int(m)) for m in sizes])[where]
 
 
 @dataclass

@@ -24,6 +24,17 @@ class Batch:
     value: np.ndarray  # float64
     quality: np.ndarray  # uint8: GOOD / UNCERTAIN / BAD
 
+    def __post_init__(self) -> None:
+        # Read-only views throughout: numba compiles one version of a kernel per argument type, and a
+        # read-only array (Arrow columns in replay) is a different type from a writable one (decoded live
+        # samples). One kind everywhere means one compiled version, cached once, whatever the source.
+        for name in ("tag", "ts", "value", "quality"):
+            array = getattr(self, name)
+            if array.flags.writeable:
+                view = array.view()
+                view.flags.writeable = False
+                object.__setattr__(self, name, view)
+
     def __len__(self) -> int:
         return int(self.tag.shape[0])
 

@@ -33,10 +33,15 @@ class Columns:
         raise AttributeError(name)
 
     def ensure(self, n: int) -> None:
-        """Make room for at least n tags, doubling so that appending tags one by one stays cheap."""
+        """Make room for at least n tags, growing geometrically so that adding tags one by one stays cheap.
+
+        The factor is 1.25, not 2: copies still cost O(1) per tag over time (at most 5 element copies a
+        tag), while the slack that is never used stays under a quarter instead of up to a half of the
+        memory (with 100,000 tags, doubling from batch-sized steps had reached 192,000 rows).
+        """
         if n <= self.capacity:
             return
-        new_capacity = max(n, 2 * self.capacity, 16)
+        new_capacity = max(n, self.capacity + self.capacity // 4, 16)
         for name, (dtype, tail, fill) in self.spec.items():
             old = self._arrays[name]
             new = np.full((new_capacity, *tail), fill, dtype=dtype)

@@ -38,10 +38,8 @@ from operator import itemgetter
 from typing import Any
 
 import numpy as np
-import pyarrow as pa
-import pyarrow.compute as pc
 
-from . import payload_scan, timestamps
+from . import epochs, payload_scan
 from .payload_scan import strict_iso_times
 from .service_config import Payload, TopicTemplate
 from .timeparse import format_time
@@ -67,7 +65,6 @@ REASONS = (TOO_LARGE, TOPIC_MISMATCH, BAD_TAG_NAME, NOT_JSON, NOT_A_NUMBER, WRON
 
 MAX_TAG_NAME = 512
 _CACHE_LIMIT = 200_000  # topics and tag names remembered; cleared when full (a flood of names stays bounded)
-_UTC_NS = pa.timestamp("ns", tz="UTC")
 _NUMBER_TYPES = frozenset((int, float))
 _SCALAR_TYPES = frozenset((str, int, float, bool))  # hashable JSON scalars
 _INVALID = 255
@@ -677,7 +674,16 @@ class Decoder:
 
     @staticmethod
     def _arrow_times(text: list[str]) -> tuple[np.ndarray, np.ndarray]:
-        """ISO text the strict parser left, through pyarrow's parser exactly as the historian reader uses it."""
+        """ISO text the strict parser left, through pyarrow's parser exactly as the historian reader uses it.
+
+        Imported here, on first need: the strict parser takes the usual forms, and pyarrow costs a
+        service that never meets the others tens of MB of resident memory.
+        """
+        import pyarrow as pa
+        import pyarrow.compute as pc
+
+        from . import timestamps
+
         try:
             array = pa.array(text, type=pa.string())
         except (pa.ArrowException, UnicodeError, ValueError):
@@ -685,7 +691,7 @@ class Decoder:
             encodable = [_encodable(t) for t in text]
             array = pa.array([t if ok else None for t, ok in zip(text, encodable, strict=True)], type=pa.string())
         try:
-            converted = pc.cast(array, _UTC_NS)
+            converted = pc.cast(array, pa.timestamp("ns", tz="UTC"))
             if converted.null_count == 0:
                 return converted.view(pa.int64()).to_numpy(), np.zeros(len(text), bool)
         except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
@@ -702,15 +708,15 @@ class Decoder:
         if fmt == "iso":
             return np.zeros(len(values), np.int64), np.ones(len(values), bool)
         if fmt in ("epoch_s", "epoch_ms"):
-            return timestamps.epoch_to_ns(values, fmt)
+            return epochs.epoch_to_ns(values, fmt)
         ns = np.zeros(len(values), np.int64)
         bad = np.ones(len(values), bool)
         magnitude = np.abs(values)
-        for unit, mask in (("epoch_s", magnitude < timestamps.EPOCH_SECONDS_BELOW),
-                           ("epoch_ms", (magnitude >= timestamps.EPOCH_SECONDS_BELOW)
-                            & (magnitude < timestamps.EPOCH_MILLISECONDS_BELOW))):  # fmt: skip
+        for unit, mask in (("epoch_s", magnitude < epochs.EPOCH_SECONDS_BELOW),
+                           ("epoch_ms", (magnitude >= epochs.EPOCH_SECONDS_BELOW)
+                            & (magnitude < epochs.EPOCH_MILLISECONDS_BELOW))):  # fmt: skip
             if mask.any():
-                ns[mask], bad[mask] = timestamps.epoch_to_ns(values[mask], unit)
+                ns[mask], bad[mask] = epochs.epoch_to_ns(values[mask], unit)
         return ns, bad
 
 
@@ -749,6 +755,9 @@ def _span_numbers(buffer: np.ndarray, starts: np.ndarray, lengths: np.ndarray) -
     data = np.empty(int(lengths.sum()), dtype=np.uint8)
     offsets = np.empty(n + 1, dtype=np.int32)
     payload_scan.gather_spans(buffer, starts, lengths, data, offsets)
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
     text = pa.StringArray.from_buffers(n, pa.py_buffer(offsets), pa.py_buffer(data))
     try:
         return np.asarray(pc.cast(text, pa.float64()).to_numpy(zero_copy_only=False), dtype=np.float64)

@@ -61,7 +61,12 @@ class TagTable:
             self.detector_params["spread"] = SpreadParams()
         self.all_individuals = True
         self.any_ar1 = False  # some tag charts AR(1) residuals (the pipeline then keeps a previous value)
-        self._given: dict[str, tuple[float, float]] = {}
+        # Config-given baselines are versioned by the config entries that give them, hashed once: hashing
+        # the tags that use them would cost O(tags) on every new tag and a dict entry per tag.
+        given = {pattern: (entry.baseline.mean, entry.baseline.sigma) for pattern, entry in config.tags.items()
+                 if isinstance(entry.baseline, BaselineGiven)}  # fmt: skip
+        self._config_version = "cfg-" + limits_version(given) if given else ""
+        self._uses_config = False
         self._version: str | None = None
         self._resolved: dict[tuple[str, ...], ResolvedTag] = {}
         self.skip_reason: dict[str, str] = {}
@@ -77,8 +82,8 @@ class TagTable:
         parts = []
         if self.limits is not None:
             parts.append(self.limits.limits_version)
-        if self._given:
-            parts.append("cfg-" + limits_version(self._given))
+        if self._uses_config:
+            parts.append(self._config_version)
         self._version = "+".join(parts) or "none"
         return self._version
 
@@ -120,8 +125,8 @@ class TagTable:
                 source = ""
                 self.skip_reason[name] = "model: ar1 needs limits estimated with model: ar1 (re-run baseline)"
         self.limit_source.append(source)
-        if source == "config":
-            self._given[name] = (mean, sigma)
+        if source == "config" and not self._uses_config:
+            self._uses_config = True
             self._version = None
         self.centres.mean[i] = mean
         self.centres.sigma[i] = sigma

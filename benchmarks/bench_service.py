@@ -287,7 +287,8 @@ def _finish(process: subprocess.Popen[str]) -> Any:
     return json.loads(out.strip().splitlines()[-1])
 
 
-def write_config(directory: Path, port: int, client_id: str, protocol: str, metrics_port: int | None) -> Path:
+def write_config(directory: Path, port: int, client_id: str, protocol: str, metrics_port: int | None,
+                 checkpoint_interval: str = "60s") -> Path:  # fmt: skip
     config: dict[str, Any] = {
         "subgroup": {"size": 1},
         # Sized like the demo for a quiet in-control stream (a few false alarms per million points).
@@ -301,7 +302,7 @@ def write_config(directory: Path, port: int, client_id: str, protocol: str, metr
             "max_tags": 200_000,
         },
         "metrics": {"listen": f"127.0.0.1:{metrics_port}" if metrics_port else None},
-        "checkpoint": {"directory": str(directory / f"state-{client_id}"), "interval": "60s"},
+        "checkpoint": {"directory": str(directory / f"state-{client_id}"), "interval": checkpoint_interval},
     }  # fmt: skip
     if os.environ.get("BENCH_BATCH_WINDOW"):
         config["source"]["batch_window"] = os.environ["BENCH_BATCH_WINDOW"]
@@ -354,30 +355,43 @@ def latency_run(broker: Broker, directory: Path, warm: list[tuple[bytes, bytes]]
 
 
 def rss_run(broker: Broker, directory: Path, n_tags: int, protocol: str) -> dict[str, Any]:
-    """``streamguard run`` (the real command) fed one sample for each of n_tags tags."""
+    """``streamguard run`` (the real command) fed one sample for each of n_tags tags, then a second round
+    (every tag charted again), then left to write a checkpoint: RSS after each, and the peak."""
     metrics_port = _free_port()
-    config = write_config(directory, broker.port, "bench-rss", protocol, metrics_port)
+    interval = 8.0
+    config = write_config(directory, broker.port, "bench-rss", protocol, metrics_port, f"{interval:g}s")
     command = [str(ROOT / ".venv" / "bin" / "streamguard"), "run", "--config", str(config)]
     process = subprocess.Popen(command, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     try:
         _wait_ready(metrics_port, 60)
         rss_start = _rss_mib(process.pid)
+        messages = make_messages(2 * n_tags, n_tags, 1, seed=7)
         publisher = RawPublisher(broker.port, "fill-rss")
-        publisher.publish_all(make_messages(n_tags, n_tags, 1, seed=7))
-        publisher.close()
-        deadline = time.monotonic() + 300
-        tracked = 0.0
-        while time.monotonic() < deadline:
-            tracked = _metric(metrics_port, "streamguard_tags_tracked")
-            if tracked >= n_tags:
-                break
-            time.sleep(0.2)
+        publisher.publish_all(messages[:n_tags])
+        tracked = _wait_metric(metrics_port, "streamguard_tags_tracked", n_tags)
         time.sleep(0.5)
-        return {"tags": int(tracked), "rss_mib": _rss_mib(process.pid), "rss_at_start_mib": rss_start,
+        rss_filled, peak_filled = _rss_mib(process.pid), _peak_mib(process.pid)
+        publisher.publish_all(messages[n_tags:])
+        publisher.close()
+        _wait_metric(metrics_port, "streamguard_messages_received_total", 2 * n_tags)
+        time.sleep(interval + 2.0)  # at least one checkpoint of the full table
+        return {"tags": int(tracked), "rss_mib": rss_filled, "rss_at_start_mib": rss_start,
+                "peak_filling_mib": peak_filled, "rss_after_checkpoint_mib": _rss_mib(process.pid),
                 "peak_mib": _peak_mib(process.pid)}  # fmt: skip
     finally:
         process.send_signal(signal.SIGTERM)
         process.wait(30)
+
+
+def _wait_metric(port: int, name: str, at_least: float, timeout: float = 300.0) -> float:
+    deadline = time.monotonic() + timeout
+    value = 0.0
+    while time.monotonic() < deadline:
+        value = _metric(port, name)
+        if value >= at_least:
+            break
+        time.sleep(0.2)
+    return value
 
 
 def _free_port() -> int:
@@ -501,8 +515,10 @@ def main() -> None:
                 print()
                 result = rss_run(broker, directory, args.rss_tags, args.protocol)
                 print(f"`streamguard run` with {result['tags']:,} tags tracked: RSS {result['rss_mib']:.0f} MiB "
-                      f"(at start {result['rss_at_start_mib']:.0f} MiB, "
-                      f"peak {result['peak_mib']:.0f} MiB)")  # fmt: skip
+                      f"(at start {result['rss_at_start_mib']:.0f} MiB; after a second sample for every tag "
+                      f"and a checkpoint {result['rss_after_checkpoint_mib']:.0f} MiB; "
+                      f"peak while filling {result['peak_filling_mib']:.0f} MiB, "
+                      f"overall {result['peak_mib']:.0f} MiB)")  # fmt: skip
         finally:
             broker.stop()
 

@@ -39,7 +39,7 @@ from typing import Any
 
 import numpy as np
 
-from . import epochs, payload_scan
+from . import epochs, number_text, payload_scan
 from .payload_scan import strict_iso_times
 from .service_config import Payload, TopicTemplate
 from .timeparse import format_time
@@ -141,12 +141,26 @@ class TopicMatcher:
     def __init__(self, templates: Sequence[TopicTemplate]) -> None:
         self._templates = [(t.template.split("/"), t.tag, "tag" in t.segment_names) for t in templates]
         self._cache: dict[str, str | None] = {}
+        # Templates whose tag name is one whole segment (``plant/{area}/{tag}``, the usual case) are read
+        # directly, ~0.4 us a topic, and cached nothing: a cache holds every topic string for as long as
+        # the service runs (~15 MB with 100,000 tags) to save about 0.3 us a message.
+        self._direct: list[tuple[int, list[tuple[int, str]], int]] | None = []
+        for segments, expression, _has_tag in self._templates:
+            fields = [i for i, segment in enumerate(segments) if segment.startswith("{")]
+            named = [i for i in fields if "{" + segments[i][1:-1] + "}" == expression]
+            if len(named) != 1 or len({segments[i] for i in fields}) != len(fields):
+                self._direct = None
+                break
+            literals = [(i, segment) for i, segment in enumerate(segments) if not segment.startswith("{")]
+            self._direct.append((len(segments), literals, named[0]))
 
     def tag_of(self, topic: str) -> str | None:
         """The tag name for a topic, or None when the samples must name their tag (no ``{tag}`` segment).
 
         Raises DecodeError for a topic no template matches or a name that cannot be a tag.
         """
+        if self._direct is not None:
+            return self._read_directly(topic, self._direct)
         cached = self._cache.get(topic, _MISSING)
         if cached is not _MISSING:
             return cached  # type: ignore[return-value]
@@ -155,6 +169,23 @@ class TopicMatcher:
             self._cache.clear()
         self._cache[topic] = name
         return name
+
+    @staticmethod
+    def _read_directly(topic: str, direct: list[tuple[int, list[tuple[int, str]], int]]) -> str:
+        """``_resolve`` for templates whose tag is one segment: the same answers, without the cache."""
+        parts = topic.split("/")
+        for length, literals, at in direct:
+            if len(parts) != length:
+                continue
+            for i, literal in literals:
+                if parts[i] != literal:
+                    break
+            else:
+                name = parts[at]
+                if not valid_tag_name(name):
+                    raise DecodeError(BAD_TAG_NAME, f"topic {topic!r} gives tag name {name!r}")
+                return name
+        raise DecodeError(TOPIC_MISMATCH, f"topic {topic!r} matches no template")
 
     def _resolve(self, topic: str) -> str | None:
         parts = topic.split("/")
@@ -748,21 +779,10 @@ def _time_detail(reason: str, ts_ns: int) -> str:
 
 
 def _span_numbers(buffer: np.ndarray, starts: np.ndarray, lengths: np.ndarray) -> np.ndarray | None:
-    """JSON number texts (spans of buffer) to float64 through pyarrow's correctly rounded parser."""
-    n = starts.shape[0]
-    if n == 0:
-        return np.zeros(0)
-    data = np.empty(int(lengths.sum()), dtype=np.uint8)
-    offsets = np.empty(n + 1, dtype=np.int32)
-    payload_scan.gather_spans(buffer, starts, lengths, data, offsets)
-    import pyarrow as pa
-    import pyarrow.compute as pc
-
-    text = pa.StringArray.from_buffers(n, pa.py_buffer(offsets), pa.py_buffer(data))
-    try:
-        return np.asarray(pc.cast(text, pa.float64()).to_numpy(zero_copy_only=False), dtype=np.float64)
-    except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
-        return None
+    """JSON number texts (spans of buffer) to float64, correctly rounded (``number_text``); None if one is not
+    a JSON number. Compiled here rather than through pyarrow's cast, which would cost the service the
+    memory of loading pyarrow for every batch."""
+    return number_text.parse_spans(buffer, starts, lengths)
 
 
 @dataclass

@@ -12,7 +12,7 @@ Each span is read as ``w * 10**q`` with at most 19 significant decimal digits in
 - When more than 19 significant digits were present (and a dropped one is not zero), the value lies
   strictly between ``w`` and ``w + 1`` times ``10**q``: if both round to the same double, that is the
   answer; otherwise the span is marked, as it is when the algorithm cannot decide, and the wrapper
-  converts it with Python's ``float`` (correctly rounded, D. Gay's algorithm). That is rare (about 1 in
+  converts it with Python's ``float`` (correctly rounded, D. Gay's algorithm). That is rare (about 2 in
   1000 of long random digit strings, never for 17-digit ``repr`` texts in tests/test_number_text.py).
 
 Digits beyond the double range give inf (``1e400``), as ``float('1e400')`` does; the decoder hands inf to

@@ -376,20 +376,6 @@ def scan_json_samples(buf, starts, ends, keys, key_lengths, words, words_ok, ts_
     return n
 
 
-@njit(cache=True, nogil=True)
-def gather_spans(buf, starts, lengths, data, offsets):
-    """Copy spans of buf end to end into data, with int32 offsets (the layout of a pyarrow string array)."""
-    q = 0
-    offsets[0] = 0
-    for i in range(starts.shape[0]):
-        s = starts[i]
-        for j in range(lengths[i]):
-            data[q] = buf[s + j]
-            q += 1
-        offsets[i + 1] = q
-    return q
-
-
 def key_table(timestamp: str, value: str, quality: str, samples: str) -> tuple[np.ndarray, np.ndarray] | None:
     """The key names as a byte table for the scanner, or None when one is not plain ASCII without escapes."""
     names = [timestamp, value, quality, samples]

@@ -41,6 +41,7 @@ import numpy as np
 from numba import njit
 from prometheus_client import CollectorRegistry
 
+from . import memory
 from .arrays import Columns
 from .config import DETECTOR_NAMES, BaselineGiven, Config, load_config, resolve_tag
 from .decode import DecodedSamples, Decoder
@@ -557,6 +558,8 @@ class Service:
             self.journal.drop_before(position)
         self.outbox.prune(taken)
         self.last_checkpoint_ns = taken
+        del snapshot, recent
+        memory.release_free_memory()  # the snapshot's copies are freed: hand their pages back
 
     def reload(self) -> None:
         """SIGHUP: new config and limits, or the old ones kept when the new ones are invalid."""
@@ -693,6 +696,7 @@ class Service:
 
 def run_service(config_path: str, limits_path: str | None, shadow: bool) -> int:
     setup_logging()
+    memory.fix_mmap_threshold()  # before the tag table grows (streamguard/memory.py says why)
     service = Service(config_path, limits_path, shadow=shadow)
     return service.run()
 

@@ -6,6 +6,7 @@ from __future__ import annotations
 import json
 import math
 from datetime import UTC, datetime, timedelta, timezone
+from typing import Any
 
 import numpy as np
 import pyarrow as pa
@@ -31,9 +32,11 @@ from streamguard.decode import (
     WRONG_TYPE,
     DecodeError,
     Decoder,
+    TopicMatcher,
     quality_code,
     strict_iso_times,
 )
+from streamguard.service_config import TopicTemplate
 from streamguard.timestamps import parse_iso
 from streamguard.types import BAD, GOOD, UNCERTAIN
 
@@ -384,3 +387,35 @@ def test_scanner_reads_large_gateway_batches_exactly() -> None:
     fast._add_safely = lambda columns, index, message: handed_back.append(index)  # type: ignore[method-assign]
     assert fast.decode(messages).value.tolist() == values.tolist()
     assert handed_back == []  # all read by the scanner
+
+
+_TEMPLATE_SETS = [["plant/{area}/{unit}/{tag}"], ["gw/{site}/{tag}", "plant/{tag}"], ["a/{tag}/b"], ["{tag}"],
+                  ["x/{tag}", "x/{other}/{tag}"]]  # fmt: skip
+_WORDS = ["plant", "gw", "a", "b", "x", "FT-1", "T+", "#", "", "s1", "u", "\u00e9", "\x07"]
+
+
+def _answer(call: Any, topic: str) -> tuple[str, object]:
+    try:
+        return "tag", call(topic)
+    except DecodeError as error:
+        return "refused", error.reason
+
+
+@pytest.mark.parametrize("templates", _TEMPLATE_SETS, ids="|".join)
+def test_direct_topic_reading_answers_exactly_as_the_general_matcher(templates: list[str]) -> None:
+    """Templates whose tag is one segment are read without the topic cache; on random topics (fixed seed)
+    the answer, tag or refusal reason, equals the general template matcher's (which the cache keeps)."""
+    matcher = TopicMatcher([TopicTemplate(template=t) for t in templates])
+    assert matcher._direct is not None
+    rng = np.random.default_rng(11)
+    for _ in range(3000):
+        topic = "/".join(_WORDS[i] for i in rng.integers(0, len(_WORDS), int(rng.integers(1, 6))))
+        assert _answer(matcher.tag_of, topic) == _answer(matcher._resolve, topic), topic
+    assert not matcher._cache  # nothing held per topic
+
+
+def test_a_composed_tag_name_uses_the_cached_general_matcher() -> None:
+    matcher = TopicMatcher([TopicTemplate(template="p/{area}/{tag}", tag="{area}.{tag}")])
+    assert matcher._direct is None
+    assert matcher.tag_of("p/north/FT-1") == "north.FT-1"
+    assert matcher._cache == {"p/north/FT-1": "north.FT-1"}

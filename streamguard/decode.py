@@ -563,13 +563,14 @@ class Decoder:
                 usable[rows] = decided
         rows = np.flatnonzero(~text)
         if rows.size:
-            numbers = _span_numbers(buffer, ts_start[rows], ts_length[rows])
+            numbers = number_text.parse_spans(buffer, ts_start[rows], ts_length[rows])
             if numbers is None or not np.isfinite(numbers).all():
                 usable[rows] = False
             else:
                 ts[rows], bad = self._number_times(numbers)
                 usable[rows] &= ~bad
-        value = _span_numbers(buffer, value_start[:n], value_length[:n])
+        # Compiled and correctly rounded; pyarrow's cast would load pyarrow into the service (tens of MB).
+        value = number_text.parse_spans(buffer, value_start[:n], value_length[:n])
         if value is None:
             return _Part.empty(), [i for i, _t in scan]
         usable &= np.isfinite(value)  # inf only from digits beyond float range: the general path decides
@@ -776,13 +777,6 @@ def _time_detail(reason: str, ts_ns: int) -> str:
     if reason == FUTURE_TIMESTAMP:
         return f"timestamp {shown} is ahead of the receive time by more than max_future"
     return f"retained sample at {shown} is older than retained_max_age"
-
-
-def _span_numbers(buffer: np.ndarray, starts: np.ndarray, lengths: np.ndarray) -> np.ndarray | None:
-    """JSON number texts (spans of buffer) to float64, correctly rounded (``number_text``); None if one is not
-    a JSON number. Compiled here rather than through pyarrow's cast, which would cost the service the
-    memory of loading pyarrow for every batch."""
-    return number_text.parse_spans(buffer, starts, lengths)
 
 
 @dataclass

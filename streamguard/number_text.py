@@ -109,23 +109,10 @@ def _multiply_128(a, b):
 def _leading_zeros(x):
     """Count of leading zero bits of a non-zero uint64 (binary search: no clz intrinsic in plain numba)."""
     n = 0
-    if (x >> np.uint64(32)) == _U0:
-        n += 32
-        x <<= np.uint64(32)
-    if (x >> np.uint64(48)) == _U0:
-        n += 16
-        x <<= np.uint64(16)
-    if (x >> np.uint64(56)) == _U0:
-        n += 8
-        x <<= np.uint64(8)
-    if (x >> np.uint64(60)) == _U0:
-        n += 4
-        x <<= np.uint64(4)
-    if (x >> np.uint64(62)) == _U0:
-        n += 2
-        x <<= np.uint64(2)
-    if (x >> _U63) == _U0:
-        n += 1
+    for shift in (32, 16, 8, 4, 2, 1):
+        if (x >> np.uint64(64 - shift)) == _U0:
+            n += shift
+            x <<= np.uint64(shift)
     return n
 
 
